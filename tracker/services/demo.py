@@ -1,0 +1,95 @@
+"""The demo scenario: three invented programs, 33 compounds, raw time courses.
+
+``load_demo`` migrates the database, registers three demo users (a lead, a
+scientist, a viewer), imports ``seed_demo/*.csv`` in one transaction and fits
+and saves every raw time course listed in ``seed_demo/timecourses/manifest.csv``
+through the same services the CLI uses, so the audit trail records all of it.
+Loading twice changes nothing.
+"""
+
+from __future__ import annotations
+
+import csv
+import importlib.resources
+from pathlib import Path
+from typing import Any
+
+from sqlalchemy import Engine, func, select
+
+from ..db import migrate
+from ..db.models import User
+from ..db.uow import UnitOfWork
+from ..errors import KrtError
+from ..units import parse_quantity
+
+DEMO_USERS = (("demo-lead", "lead"), ("demo-scientist", "scientist"), ("demo-viewer", "viewer"))
+IMPORTER = "demo-scientist"
+
+
+def demo_dir() -> Path:
+    """The ``seed_demo`` folder: beside the package in a checkout, else inside the installed package."""
+    repo = Path(__file__).resolve().parents[2] / "seed_demo"
+    if (repo / "compounds.csv").is_file():
+        return repo
+    packaged = Path(str(importlib.resources.files("tracker") / "seed_demo"))
+    if (packaged / "compounds.csv").is_file():
+        return packaged
+    raise KrtError("the demo files (seed_demo/) are missing from this installation")
+
+
+def manifest(folder: Path | None = None) -> list[dict[str, str]]:
+    folder = (folder or demo_dir()) / "timecourses"
+    with (folder / "manifest.csv").open(newline="", encoding="utf-8") as fh:
+        return list(csv.DictReader(fh))
+
+
+def _ensure_users(engine: Engine) -> None:
+    from .users import add_user
+
+    with UnitOfWork(engine, write=False) as uow:
+        existing = set(uow.session.execute(select(User.name)).scalars())
+        first = uow.session.execute(select(func.count()).select_from(User)).scalar_one() == 0
+    for name, role in DEMO_USERS:
+        if name not in existing:
+            add_user(engine, name, role, by=None if first else "demo-lead")
+            first = False
+
+
+def fit_entry(entry: dict[str, str], folder: Path):
+    """Read and fit one manifest entry; returns ``(result, raw_frame, options)``."""
+    from ..commands.fit import read_dose_response, read_time_course
+    from ..kinetics.fitting import fit_table
+
+    path = folder / entry["file"]
+    method = entry["method"]
+    tu, cu = entry.get("time_unit") or "s", entry.get("conc_unit") or "M"
+    if method in ("ki-shift", "insurmountability"):
+        df = read_dose_response(path, cu, tu, need_incubation=method == "ki-shift", need_curve=method == "insurmountability")
+    else:
+        df = read_time_course(path, tu, cu, required=("time", "signal"))
+    opts: dict[str, Any] = {}
+    kinds = {"tracer_kon": "rate2", "tracer_koff": "rate1", "tracer_conc": "concentration"}
+    for key, kind in kinds.items():
+        if entry.get(key):
+            opts[key] = parse_quantity(entry[key], kind).si
+    return fit_table(method, df, **opts), df, opts
+
+
+def load_demo(engine: Engine) -> dict[str, Any]:
+    """Seed ``engine`` with the demo scenario; returns a summary."""
+    from .fits import save_fit
+    from .importing import import_path
+
+    migrate.upgrade(engine)
+    _ensure_users(engine)
+    folder = demo_dir()
+    summary = import_path(engine, folder, actor=IMPORTER, progress=False)
+    saved = 0
+    tc_folder = folder / "timecourses"
+    for entry in manifest(folder):
+        result, df, opts = fit_entry(entry, tc_folder)
+        out = save_fit(entry["compound"], result, df, entry["file"], engine=engine, actor=IMPORTER,
+                       units={"time": entry.get("time_unit", ""), "concentration": entry.get("conc_unit", "")},
+                       options={k: entry[k] for k in ("tracer_kon", "tracer_koff", "tracer_conc") if entry.get(k)})
+        saved += bool(out["created"])
+    return {"import": summary, "fits_saved": saved, "users": [u for u, _ in DEMO_USERS]}
