@@ -70,7 +70,7 @@ COMPOUNDS = [
     ("QM-2008", "Quillmere", "QM-biaryl", "advanced-lead", 4e6, 4 * MIN, ["QM tracer comp"], "csv:spr",
      ("rat", "oral", "2 h", "5 nM", "30 min", "")),
     ("QM-2009", "Quillmere", "QM-biaryl", "candidate", 5e6, 5 * MIN, ["QM tracer comp"], "csv:spr",
-     ("dog", "oral", "2 h", "4 nM", "20 min", "")),
+     ("dog", "oral", "2 h", "3 nM", "20 min", "")),
     ("QM-2010", "Quillmere", "QM-spiro", "candidate", 1e6, 6 * H, ["QM tracer comp"], "csv:competition-kinetics",
      ("dog", "oral", "2 h", "40 nM", "30 min", "")),
     ("QM-2011", "Quillmere", "QM-biaryl", "clinical", 6e6, 3 * MIN, ["QM tracer comp"], "csv:spr",
