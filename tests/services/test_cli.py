@@ -1,0 +1,135 @@
+"""``krt grade``, ``rules``, ``queue``, ``user``, ``gate`` and ``audit`` through ``tracker.cli.main``."""
+
+from __future__ import annotations
+
+import json
+
+import pytest
+
+from tracker.db.models import APPEND_ONLY_TABLES
+from tracker.db.triggers import drop_append_only
+
+
+def test_grade_json_follows_the_contract(cli, expected_grades):
+    code, out, err = cli("grade", "--json")
+    assert code == 0 and err == ""
+    records = json.loads(out)
+    assert {r["compound"]: r["grade"] for r in records} == expected_grades
+    assert all(set(r) == {"compound", "program", "series", "stage", "grade", "findings"} for r in records)
+
+
+def test_grade_text_shows_grades_findings_prompts_and_cautions(cli):
+    code, out, _ = cli("grade", "--program", "Kestrel")
+    assert code == 0
+    assert "K-CAN-1" in out and "HIGH" in out and "E-LO-1" not in out
+    assert "-> Review the prolonged offset" in out and "next-day impairment" in out
+    code, out, _ = cli("grade", "--summary")
+    assert "->" not in out and "6 compound(s): 2 high, 2 moderate, 0 low, 2 clear" in out
+    code, out, _ = cli("grade", "--compound", "E-LO-1", "--json")
+    assert [r["compound"] for r in json.loads(out)] == ["E-LO-1"]
+
+
+def test_grade_of_an_unknown_program_is_one_line_and_non_zero(cli):
+    code, out, err = cli("grade", "--program", "Nowhere")
+    assert code != 0 and out == "" and err.count("\n") == 1 and "Nowhere" in err
+
+
+def test_rules_show_and_set(cli):
+    code, out, err = cli("rules", "set", "--program", "Kestrel", "ki_shift_threshold=12", "--by", "lena", "--reason", "noisy assay")
+    assert code == 0, err
+    code, out, _ = cli("rules", "show", "--program", "Kestrel", "--json")
+    info = json.loads(out)
+    assert info["settings"]["ki_shift_threshold"] == 12.0 and info["source"]["ki_shift_threshold"] == "program"
+    code, out, err = cli("rules", "set", "--program", "Kestrel", "ki_shift_threshold=3", "--by", "sam", "--reason", "x")
+    assert code == 2 and "only a lead" in err and err.count("\n") == 1
+    code, out, err = cli("rules", "set", "--program", "Kestrel", "ki_shift_threshold", "--by", "lena", "--reason", "x")
+    assert code == 2 and "KEY=VALUE" in err
+
+
+def test_queue_json_and_text(cli):
+    code, out, _ = cli("queue", "--json")
+    q = json.loads(out)
+    assert code == 0 and q[0]["compound"] == "K-ADV-1" and {"rank", "score", "suggested_assay", "reason"} <= set(q[0])
+    code, out, _ = cli("queue", "--limit", "2")
+    assert code == 0 and "K-ADV-1" in out and "suggested assay" in out
+
+
+def test_user_add_and_list(cli):
+    code, out, err = cli("user", "add", "mia", "--role", "scientist", "--by", "lena")
+    assert code == 0 and "mia added as scientist" in out
+    code, out, err = cli("user", "add", "zed", "--role", "lead", "--by", "mia")
+    assert code == 2 and "only a lead may add users" in err
+    code, out, _ = cli("user", "list", "--json")
+    assert {u["name"]: u["role"] for u in json.loads(out)}["mia"] == "scientist"
+
+
+def test_user_add_on_an_empty_database_bootstraps_a_lead(migrated_engine, capsys, monkeypatch):
+    from tracker.cli import main
+
+    url = migrated_engine.url.render_as_string(hide_password=False)
+    monkeypatch.setenv("KRT_DATABASE_URL", url)
+    assert main(["user", "add", "ana", "--role", "viewer"]) == 2
+    assert "first user must be a lead" in capsys.readouterr().err
+    assert main(["user", "add", "ana", "--role", "lead"]) == 0
+    assert "ana added as lead" in capsys.readouterr().out
+
+
+def test_gate_refused_is_one_line_with_a_non_zero_exit_and_recorded(cli):
+    code, out, err = cli("gate", "K-ADV-1", "--to", "candidate", "--by", "lena", "--reason", "best compound")
+    assert code == 2 and out == ""
+    assert err.count("\n") == 1 and "unwaived high finding residence-time-unmeasured" in err and "recorded as decision 1" in err
+    code, out, err = cli("gate", "K-HIT-1", "--to", "lead-optimization", "--by", "lena", "--reason", "x")
+    assert code == 2 and "stage-skip" in err
+    code, out, err = cli("gate", "K-HIT-1", "--to", "hit-to-lead", "--by", "vic", "--reason", "x")
+    assert code == 2 and "is a viewer" in err
+
+
+def test_gate_approved_with_a_waiver_and_json(cli):
+    code, out, err = cli("gate", "K-ADV-1", "--to", "candidate", "--by", "lena", "--reason", "kinetics booked",
+                         "--waive", "residence-time-unmeasured:assay slot in March", "--json")
+    assert code == 0, err
+    d = json.loads(out)
+    assert d["outcome"] == "approved" and d["waivers"]["residence-time-unmeasured"]["reason"] == "assay slot in March"
+    code, out, _ = cli("grade", "--compound", "K-ADV-1", "--json")
+    assert json.loads(out)[0]["stage"] == "candidate"
+
+
+def test_audit_verify_passes_on_an_intact_log_and_show_filters_by_compound(cli):
+    cli("gate", "K-HIT-1", "--to", "hit-to-lead", "--by", "lena", "--reason", "clean")
+    code, out, err = cli("audit", "verify")
+    assert code == 0 and "audit chain intact" in out and "1 decision(s) match" in out
+    code, out, _ = cli("audit", "show", "--compound", "K-HIT-1", "--json")
+    actions = [e["action"] for e in json.loads(out)]
+    assert actions == ["create", "gate-approved", "stage-change"]
+    code, out, _ = cli("audit", "show", "--limit", "2")
+    assert code == 0 and len(out.strip().splitlines()) == 2 and "stage-change" in out
+
+
+AUDIT_EDITS = {
+    "at": "'2020-01-01T00:00:00.000000+00:00'",
+    "actor": "'mallory'",
+    "action": "'gate-refused'",
+    "entity_type": "'compound'",
+    "entity_id": "'999'",
+    "before_json": "'{\"x\":1}'",
+    "after_json": "'{\"outcome\":\"approved\"}'",
+    "reason": "'nothing to see'",
+    "prev_hash": "'" + "f" * 64 + "'",
+    "hash": "'" + "e" * 64 + "'",
+}
+
+
+@pytest.mark.parametrize("field", list(AUDIT_EDITS))
+def test_audit_verify_names_the_gate_event_whose_field_was_edited(cli, kestrel, field):
+    cli("gate", "K-CAN-1", "--to", "clinical", "--by", "lena", "--reason", "ok", "--waive", "duration-mismatch")
+    code, out, _ = cli("audit", "show", "--json")
+    gate_event = next(e["id"] for e in json.loads(out) if e["action"] == "gate-approved")
+    with kestrel.begin() as conn:
+        drop_append_only(lambda sql: conn.exec_driver_sql(sql), kestrel.dialect.name, APPEND_ONLY_TABLES)
+        conn.exec_driver_sql(f"UPDATE audit_events SET {field} = {AUDIT_EDITS[field]} WHERE id = {gate_event}")
+    code, out, err = cli("audit", "verify")
+    assert code == 1, field
+    # an edit is caught at the edited event, or (a rewritten hash) where the next event's link breaks
+    assert f"event {gate_event}" in err or f"event {gate_event + 1}" in err
+    code, out, _ = cli("audit", "verify", "--json")
+    assert json.loads(out)["ok"] is False

@@ -1,0 +1,601 @@
+"""The grader: every rule over a whole portfolio in one vectorised pass.
+
+:func:`grade_frames` takes plain DataFrames (a :class:`Portfolio`, as the
+queries in :mod:`tracker.db.queries` return them) and a rule configuration per
+program, and returns a :class:`GradeResult`: one findings frame and one row per
+compound with its grade.  It knows no database; the service
+:mod:`tracker.services.grading` loads the frames and the dashboard's what-if
+page can pass edited copies.
+
+Steps (each a vectorised DataFrame operation or one call of a ``check_*``):
+
+1. pick each compound's kinetic measurement: the latest dated non-qualitative
+   row (a saved Ki-shift or insurmountability fit carries no residence time);
+2. predict the fold shift of every potency value of a compound with a measured
+   residence time (one simulation call per assay format) and run
+   :func:`~tracker.rules.checks.check_affinity_underestimate`;
+3. for compounds without a residence time, gather the qualitative evidence:
+   Ki-shift pairs (the same compound, assay, readout and format at two
+   incubation times; geometric means per time, shortest against longest) and
+   saved Ki-shift fits, insurmountable curves (potency rows and saved fits),
+   and potencies at the series' assay floor (kon = the series' median
+   measured kon, else the configured assumed kon);
+4. precedence, "direct evidence beats heuristics": a measured residence time
+   silences every inferred finding (step 3 runs only without one), and a Ki-shift
+   comparison showing no shift (ratio < ``no_shift_ratio``) silences the
+   assay-floor heuristic for that compound;
+5. ``residence-time-unmeasured`` with the slow-binding evidence of step 3;
+6. ``duration-mismatch``: kon from the measurement (or koff/KD), else KD from
+   the compound's longest-incubation KD/Ki/Kb corrected to equilibrium; the
+   preferred PK row (human first, then oral, then newest); the program's
+   dosing interval, else the PK study's;
+7. grade = the worst finding's severity; ``clear`` when there is none.
+
+Grades: ``high`` > ``moderate`` > ``low`` > ``clear`` (``clear`` = no finding).
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import re
+from dataclasses import dataclass, field
+from typing import Any, Mapping
+
+import numpy as np
+import pandas as pd
+
+from ..domain import STAGES
+from .checks import (
+    FINDING_COLUMNS,
+    check_affinity_underestimate,
+    check_assay_floor,
+    check_duration_mismatch,
+    check_insurmountability,
+    check_ki_shift,
+    check_residence_time_unmeasured,
+    fmt_fold,
+    ki_shift_outcome,
+    assay_suggestions,
+    predict_apparent,
+)
+from .config import DEFAULTS, FIELD_NAMES, RULES, SEVERITY_RANK, RuleConfig, version_label
+
+__all__ = ["Portfolio", "GradeResult", "grade_frames", "parse_fit", "assay_key", "QUALITATIVE_METHODS", "GRADE_ORDER"]
+
+QUALITATIVE_METHODS = ("ki-shift", "insurmountability")
+GRADE_ORDER = ("high", "moderate", "low", "clear")
+_RULE_ORDER = {r: i for i, r in enumerate(RULES)}
+_AFFINITY_READOUTS = ("KD", "Ki", "Kb")
+_SPECIES_PREFERENCE = {"human": 0}
+
+
+def _empty(columns) -> pd.DataFrame:
+    return pd.DataFrame({c: pd.Series(dtype=object) for c in columns})
+
+
+@dataclass
+class Portfolio:
+    """The frames the grader reads (columns as returned by :mod:`tracker.db.queries`).
+
+    ``compounds``: id, name, program, series, stage.  ``programs``: name,
+    intended_profile, engagement_threshold, onset_max_s, duration_min_s,
+    offset_max_s, dosing_interval_s.  ``potency``, ``kinetics``, ``pk``:
+    the measurement views (``compound_id`` keyed).  ``time_courses``: id,
+    compound_id, method, meta_json (optional; saved fits may carry their
+    result there).
+    """
+
+    compounds: pd.DataFrame
+    programs: pd.DataFrame
+    potency: pd.DataFrame
+    kinetics: pd.DataFrame
+    pk: pd.DataFrame
+    time_courses: pd.DataFrame | None = None
+
+    def measurement_ids(self, compound_id: int) -> dict[str, list[int]]:
+        """Ids of every measurement of one compound (for evidence snapshots)."""
+        out = {}
+        for key, df in (("potency_ids", self.potency), ("kinetic_measurement_ids", self.kinetics), ("pk_ids", self.pk),
+                        ("time_course_ids", self.time_courses)):
+            if df is None or df.empty:
+                out[key] = []
+                continue
+            out[key] = sorted(int(i) for i in df.loc[df["compound_id"] == compound_id, "id"])
+        return out
+
+
+@dataclass
+class GradeResult:
+    """Output of :func:`grade_frames`.
+
+    ``compounds``: one row per compound (compound_id, compound, program,
+    series, stage, grade, n_findings, top_rule, top_severity, top_message,
+    residence_time_s, kinetic_measurement_id, best_potency_M,
+    best_potency_readout, best_potency_assay, best_potency_incubation_s,
+    max_fold_shift, corrected_affinity_M, ruleset_version).  ``findings``:
+    :data:`~tracker.rules.checks.FINDING_COLUMNS`, sorted worst first within
+    each compound.  ``potency``: every potency row with its predicted
+    ``fold_shift`` and ``corrected_affinity_M`` (NaN without a residence time).
+    """
+
+    compounds: pd.DataFrame
+    findings: pd.DataFrame
+    potency: pd.DataFrame = field(default_factory=pd.DataFrame)
+    ruleset_versions: dict[str, str] = field(default_factory=dict)
+
+    def findings_of(self, compound_id: int) -> list[dict[str, Any]]:
+        f = self.findings[self.findings["compound_id"] == compound_id]
+        return [_finding_dict(r) for r in f.itertuples(index=False)]
+
+    def to_records(self) -> list[dict[str, Any]]:
+        """The JSON contract: ``[{compound, program, series, stage, grade, findings: [...]}]``."""
+        by_compound: dict[Any, list[dict]] = {}
+        for r in self.findings.itertuples(index=False):
+            by_compound.setdefault(r.compound_id, []).append(_finding_dict(r))
+        out = []
+        for r in self.compounds.itertuples(index=False):
+            out.append({
+                "compound": r.compound,
+                "program": r.program,
+                "series": None if r.series is None or (isinstance(r.series, float) and math.isnan(r.series)) else r.series,
+                "stage": r.stage,
+                "grade": r.grade,
+                "findings": by_compound.get(r.compound_id, []),
+            })
+        return out
+
+
+def _finding_dict(r) -> dict[str, Any]:
+    d = {"rule": r.rule, "severity": r.severity, "message": r.message, "prompt": r.prompt}
+    if isinstance(r.caution, str) and r.caution:
+        d["caution"] = r.caution
+    for k, v in (r.data or {}).items():
+        if k not in d:
+            d[k] = v
+    return d
+
+
+# ----------------------------------------------------------------------------- fits stored as JSON
+def parse_fit(text: str | None) -> dict[str, Any] | None:
+    """The qualitative content of a stored fit (``FitResult.to_dict`` or ``to_json_keys`` JSON).
+
+    Returns ``{method, ratio, ratio_low, ratio_high, incubation_short_s,
+    incubation_long_s, value_long_M, fraction, fraction_low, fraction_high,
+    rt_lower_bound}`` (missing values NaN) or ``None`` for empty/unreadable text.
+    A time course's ``meta_json`` may nest the fit under ``"fit"``.
+    """
+    if not text or not isinstance(text, str):
+        return None
+    try:
+        d = json.loads(text)
+    except ValueError:
+        return None
+    if not isinstance(d, dict):
+        return None
+    if isinstance(d.get("fit"), dict):
+        d = d["fit"]
+    method = d.get("method")
+    est = d.get("estimates") if isinstance(d.get("estimates"), dict) else {}
+    ci = d.get("ci95") if isinstance(d.get("ci95"), dict) else {}
+    extras = d.get("extras") if isinstance(d.get("extras"), dict) else {}
+
+    def num(v):
+        try:
+            return float(v) if v is not None else math.nan
+        except (TypeError, ValueError):
+            return math.nan
+
+    def pick(name, flat_key):
+        v = est.get(name, d.get(flat_key))
+        return num(v)
+
+    def interval(name, flat_key):
+        pair = ci.get(name, d.get(flat_key))
+        if isinstance(pair, (list, tuple)) and len(pair) == 2:
+            return num(pair[0]), (math.inf if pair[1] is None else num(pair[1]))
+        return math.nan, math.nan
+
+    ratio = pick("ki_shift_ratio", "ki_shift_ratio")
+    r_lo, r_hi = interval("ki_shift_ratio", "ki_shift_ratio_ci95")
+    frac = pick("max_response_fraction", "max_response_fraction")
+    f_lo, f_hi = interval("max_response_fraction", "max_response_fraction_ci95")
+    t_s = num(extras.get("incubation_short_s", d.get("incubation_short_s")))
+    t_l = num(extras.get("incubation_long_s", d.get("incubation_long_s")))
+    v_long = num(est.get("ki", d.get("ki_M")))
+    labels = extras.get("labels")
+    if not math.isfinite(v_long) and isinstance(labels, list) and labels:
+        v_long = num(est.get(f"ic50[{labels[-1]}]"))
+    lower = bool(extras.get("rt_is_lower_bound", d.get("rt_is_lower_bound", False)))
+    return {"method": method, "ratio": ratio, "ratio_low": r_lo, "ratio_high": r_hi, "incubation_short_s": t_s,
+            "incubation_long_s": t_l, "value_long_M": v_long, "fraction": frac, "fraction_low": f_lo,
+            "fraction_high": f_hi, "rt_lower_bound": lower}
+
+
+def _parse_column(df: pd.DataFrame, column: str) -> pd.DataFrame:
+    """:func:`parse_fit` of every non-empty cell of ``column`` (one row per parsed cell, index kept)."""
+    if df is None or df.empty or column not in df.columns:
+        return pd.DataFrame()
+    texts = df[column]
+    texts = texts[texts.notna()]
+    parsed = {i: parse_fit(t) for i, t in texts.items()}
+    parsed = {i: p for i, p in parsed.items() if p is not None}
+    if not parsed:
+        return pd.DataFrame()
+    return pd.DataFrame.from_dict(parsed, orient="index")
+
+
+# ----------------------------------------------------------------------------- configuration per row
+def _config_table(programs: list[str], configs: Mapping[str, RuleConfig] | None) -> pd.DataFrame:
+    configs = configs or {}
+    rows = {p: (configs.get(p) or DEFAULTS).to_dict() for p in programs}
+    return pd.DataFrame.from_dict(rows, orient="index", columns=list(FIELD_NAMES)) if rows else pd.DataFrame(columns=list(FIELD_NAMES))
+
+
+def _cfg(frame: pd.DataFrame, table: pd.DataFrame, name: str) -> np.ndarray:
+    if frame.empty:
+        return np.empty(0)
+    return frame["program"].map(table[name]).to_numpy(dtype=float)
+
+
+# ----------------------------------------------------------------------------- the pass
+def _select_kinetics(kin: pd.DataFrame) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """(one measured kinetics row per compound, the qualitative fit rows)."""
+    cols = ["compound_id", "kinetic_measurement_id", "koff_per_s", "kon_per_M_s", "kd_M", "koff_low_per_s", "koff_high_per_s",
+            "method", "rt_lower_bound"]
+    if kin is None or kin.empty:
+        return _empty(cols), pd.DataFrame()
+    kin = kin.copy()
+    parsed = _parse_column(kin, "fit_json")
+    kin["_fit_method"] = parsed["method"].reindex(kin.index) if "method" in parsed else None
+    kin["rt_lower_bound"] = parsed["rt_lower_bound"].reindex(kin.index).fillna(False).astype(bool) if "rt_lower_bound" in parsed else False
+    qual_mask = kin["_fit_method"].isin(QUALITATIVE_METHODS)
+    qual = parsed.loc[parsed.index.intersection(kin.index[qual_mask])].copy() if qual_mask.any() else pd.DataFrame()
+    if not qual.empty:
+        qual["compound_id"] = kin.loc[qual.index, "compound_id"]
+        qual["kinetic_measurement_id"] = kin.loc[qual.index, "id"]
+        qual["time_course_id"] = kin.loc[qual.index, "time_course_id"] if "time_course_id" in kin.columns else np.nan
+    measured = kin[~qual_mask & (pd.to_numeric(kin["koff_per_s"], errors="coerce") > 0)]
+    order = measured.assign(_d=measured["measured_on"] if "measured_on" in measured.columns else pd.NaT)
+    order = order.sort_values(["compound_id", "_d", "id"], na_position="first", kind="mergesort")
+    latest = order.drop_duplicates("compound_id", keep="last").rename(columns={"id": "kinetic_measurement_id"})
+    for c in cols:
+        if c not in latest.columns:
+            latest[c] = np.nan
+    latest = latest[cols].copy()
+    kon = latest["kon_per_M_s"].astype(float)
+    kd = latest["kd_M"].astype(float)
+    koff = latest["koff_per_s"].astype(float)
+    latest["kon_per_M_s"] = np.where(np.isfinite(kon) & (kon > 0), kon, np.where(np.isfinite(kd) & (kd > 0), koff / kd, np.nan))
+    latest["kd_M"] = np.where(np.isfinite(kd) & (kd > 0), kd, koff / latest["kon_per_M_s"])
+    return latest.reset_index(drop=True), qual
+
+
+_TIME_TOKEN = re.compile(r"(?<![A-Za-z0-9.])\d+(?:\.\d+)?\s*(?:s|sec|secs|m|min|mins|minutes?|h|hr|hrs|hours?|d|days?)(?![A-Za-z0-9])",
+                         re.IGNORECASE)
+
+
+def assay_key(name: str) -> str:
+    """An assay's name without incubation-time tokens: ``'HF bind 16h'`` -> ``'hf bind'``.
+
+    Potency values pair into a Ki-shift comparison when compound, assay key,
+    readout and format agree, so one assay recorded under the same name at two
+    times, or under names that differ only by the time (``... 15m`` /
+    ``... 3h``), both count.
+    """
+    text = _TIME_TOKEN.sub(" ", str(name))
+    return " ".join(text.lower().replace("_", " ").split())
+
+
+def _potency_pairs(pot: pd.DataFrame) -> pd.DataFrame:
+    """Ki-shift comparisons from potency rows: same compound/assay key/readout/format at >= 2 incubation times.
+
+    Replicates at one time enter as their geometric mean; the shortest time is compared with the longest.
+    """
+    cols = ["compound_id", "assay", "readout", "format", "ratio", "incubation_short_s", "incubation_long_s", "value_long_M", "potency_ids"]
+    if pot.empty:
+        return _empty(cols)
+    p = pot[["compound_id", "assay", "readout", "format", "incubation_s", "value_M", "potency_id"]].copy()
+    names = p["assay"].to_numpy(dtype=object)
+    keys_of = {a: assay_key(a) for a in pd.unique(names)}
+    p["_key"] = [keys_of[a] for a in names]
+    p["_g"] = p.groupby(["compound_id", "_key", "readout", "format"], sort=False, dropna=False).ngroup().to_numpy()
+    n_times = p.groupby("_g")["incubation_s"].transform("nunique")
+    p = p[(n_times >= 2).to_numpy()]
+    if p.empty:
+        return _empty(cols)
+    p["_logv"] = np.log(p["value_M"].to_numpy(dtype=float))
+    per = p.groupby(["_g", "incubation_s"], sort=True).agg(_logv=("_logv", "mean"), assay=("assay", "first"),
+                                                            compound_id=("compound_id", "first"), readout=("readout", "first"),
+                                                            format=("format", "first"))
+    first = per.groupby(level=0).head(1)  # sorted by time within a group: the shortest
+    last = per.groupby(level=0).tail(1)  # the longest
+    g = first.index.get_level_values(0).to_numpy()
+    t_s = first.index.get_level_values(1).to_numpy(dtype=float)
+    t_l = last.index.get_level_values(1).to_numpy(dtype=float)
+    out = pd.DataFrame({"compound_id": first["compound_id"].to_numpy(), "readout": first["readout"].to_numpy(),
+                        "format": first["format"].to_numpy()})
+    a_s, a_l = first["assay"].to_numpy(dtype=object), last["assay"].to_numpy(dtype=object)
+    out["assay"] = [a if a == b else f"{a} vs {b}" for a, b in zip(a_s, a_l)]
+    out["ratio"] = np.exp(first["_logv"].to_numpy() - last["_logv"].to_numpy())
+    out["incubation_short_s"] = t_s
+    out["incubation_long_s"] = t_l
+    out["value_long_M"] = np.exp(last["_logv"].to_numpy())
+    # ids of the rows at the two times compared, per group (one sort and one split, no Python groupby)
+    pos = pd.Series(np.arange(g.size), index=g)
+    rg = p["_g"].to_numpy()
+    t = p["incubation_s"].to_numpy(dtype=float)
+    j = pos.reindex(rg).to_numpy()
+    used = (t == t_s[j]) | (t == t_l[j])
+    order = np.lexsort((p["potency_id"].to_numpy()[used], j[used]))
+    ids_sorted = p["potency_id"].to_numpy()[used][order].astype(int)
+    bounds = np.searchsorted(j[used][order], np.arange(1, g.size))
+    out["potency_ids"] = [a.tolist() for a in np.split(ids_sorted, bounds)]
+    return out[cols]
+
+
+def _series_kon(comp: pd.DataFrame, kin: pd.DataFrame) -> pd.DataFrame:
+    """Median measured kon per (program, series) and the number of compounds it comes from."""
+    k = kin[["compound_id", "kon_per_M_s"]].merge(comp[["compound_id", "program", "series"]], on="compound_id")
+    k = k[np.isfinite(k["kon_per_M_s"].astype(float)) & k["series"].notna()]
+    if k.empty:
+        return pd.DataFrame(columns=["program", "series", "series_kon", "series_kon_n"])
+    g = k.groupby(["program", "series"])["kon_per_M_s"]
+    return pd.DataFrame({"series_kon": g.median(), "series_kon_n": g.size()}).reset_index()
+
+
+def _pick_pk(pk: pd.DataFrame) -> pd.DataFrame:
+    cols = ["compound_id", "pk_id", "species", "route", "half_life_s", "free_cmax_M", "tmax_s", "pk_dosing_interval_s"]
+    if pk is None or pk.empty:
+        return _empty(cols)
+    p = pk.copy()
+    p["_sp"] = p["species"].astype(str).str.lower().map(_SPECIES_PREFERENCE).fillna(1)
+    p["_rt"] = (p["route"] != "oral").astype(int)
+    p = p.sort_values(["compound_id", "_sp", "_rt", "id"], ascending=[True, True, True, False], kind="mergesort")
+    p = p.drop_duplicates("compound_id", keep="first")
+    return p.rename(columns={"id": "pk_id", "dosing_interval_s": "pk_dosing_interval_s"})[cols].reset_index(drop=True)
+
+
+def _compound_frame(compounds: pd.DataFrame) -> pd.DataFrame:
+    c = compounds.rename(columns={"id": "compound_id", "name": "compound"})
+    cols = ["compound_id", "compound", "program", "series", "stage"]
+    for col in cols:
+        if col not in c.columns:
+            c[col] = None
+    return c[cols].reset_index(drop=True)
+
+
+def _saved_fits(time_courses: pd.DataFrame | None, qual_kin: pd.DataFrame, has_rt: set, comp: pd.DataFrame) -> pd.DataFrame:
+    """Saved Ki-shift and insurmountability fits (time courses and qualitative kinetics rows) of compounds without RT."""
+    parts = [qual_kin] if not qual_kin.empty else []
+    if time_courses is not None and not time_courses.empty and "meta_json" in time_courses.columns:
+        parsed = _parse_column(time_courses, "meta_json")
+        if not parsed.empty:
+            parsed = parsed[parsed["method"].isin(QUALITATIVE_METHODS)].copy()
+            parsed["compound_id"] = time_courses.loc[parsed.index, "compound_id"]
+            parsed["time_course_id"] = time_courses.loc[parsed.index, "id"]
+            # a fit saved both as a measurement and inside its time course counts once
+            if not qual_kin.empty and "time_course_id" in qual_kin.columns:
+                parsed = parsed[~parsed["time_course_id"].isin(qual_kin["time_course_id"].dropna())]
+            parts.append(parsed)
+    if not parts:
+        return pd.DataFrame(columns=["method", "compound_id"])
+    fits = pd.concat(parts, ignore_index=True)
+    return fits[~fits["compound_id"].isin(has_rt) & fits["compound_id"].isin(comp["compound_id"])]
+
+
+def _ki_shift_findings(no_rt: pd.DataFrame, fits: pd.DataFrame, comp: pd.DataFrame, table: pd.DataFrame) -> tuple[list, set]:
+    """Ki-shift findings (potency pairs and saved fits) and the compounds whose comparisons show no shift."""
+    pairs = _potency_pairs(no_rt)
+    pairs["source"] = "potency"
+    if not fits.empty:
+        ks = fits[(fits["method"] == "ki-shift") & np.isfinite(fits["ratio"].astype(float))].copy()
+        if not ks.empty:
+            ks["assay"] = "a saved Ki-shift fit"
+            ks["source"] = "fit"
+            pairs = pd.concat([pairs, ks], ignore_index=True)
+    if pairs.empty:
+        return [], set()
+    pairs = pairs.merge(comp[["compound_id", "program", "stage"]], on="compound_id", how="inner")
+    thr, none = _cfg(pairs, table, "ki_shift_threshold"), _cfg(pairs, table, "no_shift_ratio")
+    found = check_ki_shift(pairs, ki_shift_threshold=thr, no_shift_ratio=none, fold_high=_cfg(pairs, table, "fold_high"),
+                           kon_low=_cfg(pairs, table, "kon_low_per_M_s"), kon_high=_cfg(pairs, table, "kon_high_per_M_s"))
+    outcome = ki_shift_outcome(pairs["ratio"].astype(float), ki_shift_threshold=thr, no_shift_ratio=none)
+    shifted = set(pairs.loc[outcome == "shift", "compound_id"])
+    return [found], set(pairs.loc[outcome == "no-shift", "compound_id"]) - shifted
+
+
+def _insurmountability_findings(no_rt: pd.DataFrame, fits: pd.DataFrame, comp: pd.DataFrame, table: pd.DataFrame) -> pd.DataFrame:
+    """Insurmountable curves: potency rows with a max_response_fraction and saved insurmountability fits."""
+    ins = no_rt[np.isfinite(no_rt["max_response_fraction"].astype(float))].copy()
+    ins["source"] = "potency"
+    if not fits.empty:
+        fi = fits[(fits["method"] == "insurmountability") & np.isfinite(fits["fraction"].astype(float))].copy()
+        if not fi.empty:
+            fi = fi.rename(columns={"fraction": "max_response_fraction", "fraction_low": "max_response_fraction_low",
+                                    "fraction_high": "max_response_fraction_high"})
+            fi["assay"] = "a saved insurmountability fit"
+            fi["source"] = "fit"
+            ins = pd.concat([ins, fi.merge(comp[["compound_id", "program", "stage"]], on="compound_id", how="inner")], ignore_index=True)
+    if ins.empty:
+        return _empty(FINDING_COLUMNS)
+    return check_insurmountability(ins, insurmountable_fraction=_cfg(ins, table, "insurmountable_fraction"),
+                                   insurmountable_strong_fraction=_cfg(ins, table, "insurmountable_strong_fraction"))
+
+
+def _floor_findings(rows: pd.DataFrame, comp: pd.DataFrame, kin: pd.DataFrame, table: pd.DataFrame) -> pd.DataFrame:
+    """Potencies at the assay floor; kon = the series' median measured kon, else the configured assumed kon."""
+    if rows.empty:
+        return _empty(FINDING_COLUMNS)
+    fr = rows.merge(_series_kon(comp, kin), on=["program", "series"], how="left")
+    measured = np.isfinite(fr["series_kon"].astype(float)).to_numpy()
+    fr["kon_per_M_s"] = np.where(measured, fr["series_kon"].astype(float), _cfg(fr, table, "assumed_kon_per_M_s"))
+    n_k = fr["series_kon_n"].fillna(0).astype(int).to_numpy()
+    fr["kon_source"] = [f"median of {k} measured in the series" if m else "assumed; no kon measured in the series"
+                        for m, k in zip(measured, n_k)]
+    return check_assay_floor(fr, floor_factor=_cfg(fr, table, "floor_factor"))
+
+
+def grade_frames(portfolio: Portfolio, configs: Mapping[str, RuleConfig] | None = None,
+                 versions: Mapping[str, str] | None = None) -> GradeResult:
+    """Grade every compound of ``portfolio`` (see the module docstring for the steps).
+
+    ``configs`` maps program name -> :class:`~tracker.rules.config.RuleConfig`
+    (default :data:`~tracker.rules.config.DEFAULTS`); ``versions`` maps program
+    name -> rule-set version label.
+    """
+    comp = _compound_frame(portfolio.compounds)
+    programs = sorted(set(comp["program"].dropna()))
+    table = _config_table(programs, configs)
+    versions = {p: (versions or {}).get(p, version_label()) for p in programs}
+
+    kin, qual_kin = _select_kinetics(portfolio.kinetics)
+    has_rt = set(kin["compound_id"].tolist())
+
+    # ---- potency rows with compound context and (where measured) kinetics
+    pot = portfolio.potency.copy() if portfolio.potency is not None else pd.DataFrame()
+    if pot.empty:
+        pot = pd.DataFrame(columns=["id", "compound_id", "assay", "readout", "value_M", "incubation_s", "format", "tracer_conc_M",
+                                    "tracer_kd_M", "tracer_residence_time_s", "max_response_fraction"])
+    pot = pot.drop(columns=[c for c in ("program", "compound", "stage", "series") if c in pot.columns])
+    pot = pot.merge(comp[["compound_id", "program", "series", "stage"]], on="compound_id", how="inner")
+    pot = pot.rename(columns={"id": "potency_id"}).reset_index(drop=True)
+    with_rt = pot["compound_id"].isin(has_rt).to_numpy()
+    rows = pot[with_rt].merge(kin, on="compound_id", how="left")
+    pred = predict_apparent(rows) if len(rows) else pd.DataFrame(
+        columns=["fold_shift", "fold_shift_low", "fold_shift_high", "corrected_affinity_M", "kd_used_M", "simulated_as", "note"])
+    rows = pd.concat([rows.reset_index(drop=True), pred.reset_index(drop=True)], axis=1)
+    found = [check_affinity_underestimate(
+        rows,
+        incubation_multiple=_cfg(rows, table, "incubation_multiple"),
+        fold_tolerance=_cfg(rows, table, "fold_tolerance"),
+        fold_moderate=_cfg(rows, table, "fold_moderate"),
+        fold_high=_cfg(rows, table, "fold_high"),
+    )] if len(rows) else []
+
+    # ---- qualitative evidence, compounds without a residence time only
+    no_rt = pot[~with_rt]
+    fits = _saved_fits(portfolio.time_courses, qual_kin, has_rt, comp)
+    likely, no_shift = _ki_shift_findings(no_rt, fits, comp, table)
+    likely.append(_insurmountability_findings(no_rt, fits, comp, table))
+    likely.append(_floor_findings(no_rt[~no_rt["compound_id"].isin(no_shift)], comp, kin, table))
+    likely = [f for f in likely if not f.empty]
+    found += likely
+
+    # ---- residence-time-unmeasured (only lead-optimization and later can fire: text for those only)
+    rt_frame = comp[["compound_id", "stage"]].copy()
+    rt_frame["has_kinetics"] = rt_frame["compound_id"].isin(has_rt)
+    late = rt_frame["stage"].isin(STAGES[STAGES.index("lead-optimization"):]) & ~rt_frame["has_kinetics"]
+    need = set(rt_frame.loc[late, "compound_id"])
+    ev_rows = pd.concat(likely, ignore_index=True) if likely else None
+    if ev_rows is not None:
+        ev_rows = ev_rows[ev_rows["compound_id"].isin(need)]
+    evidence = _evidence_text(ev_rows)
+    assays = assay_suggestions(pot, need)
+    rt_frame["slow_evidence"] = rt_frame["compound_id"].map(evidence)
+    rt_frame["suggested_assay"] = rt_frame["compound_id"].map(assays)
+    found.append(check_residence_time_unmeasured(rt_frame))
+
+    # ---- duration-mismatch
+    dm = _duration_frame(comp, portfolio.programs, kin, portfolio.pk, rows)
+    found.append(check_duration_mismatch(dm, default_engagement_threshold=_cfg(dm, table, "default_engagement_threshold")))
+
+    # ---- combine
+    found = [f for f in found if f is not None and not f.empty]
+    findings = pd.concat(found, ignore_index=True) if found else _empty(FINDING_COLUMNS)
+    if not findings.empty:
+        findings["_rank"] = findings["severity"].map(SEVERITY_RANK)
+        findings["_rule"] = findings["rule"].map(_RULE_ORDER)
+        findings = findings.sort_values(["compound_id", "_rank", "_rule"], ascending=[True, False, True], kind="mergesort")
+        findings = findings.drop(columns=["_rank", "_rule"]).reset_index(drop=True)
+    summary = _summary(comp, findings, kin, pot, rows, versions)
+    potency_out = pot.merge(rows[["potency_id", "fold_shift", "fold_shift_low", "fold_shift_high", "corrected_affinity_M"]],
+                            on="potency_id", how="left") if len(rows) else pot.assign(fold_shift=np.nan, corrected_affinity_M=np.nan)
+    return GradeResult(summary, findings, potency_out, versions)
+
+
+def _evidence_text(likely: pd.DataFrame | None) -> dict:
+    """compound_id -> short text naming its slow-binding evidence, grouped by kind."""
+    if likely is None or likely.empty:
+        return {}
+    out: dict[Any, dict[str, list[str]]] = {}
+    for cid, data in zip(likely["compound_id"], likely["data"]):
+        kind = data.get("evidence")
+        if kind == "ki-shift":
+            head, item = "Ki shift", f"{fmt_fold(data.get('ki_shift_ratio'))} in {data.get('assay')}"
+        elif kind == "insurmountable":
+            head, item = "insurmountable", f"maximum {100 * data.get('max_response_fraction', math.nan):.0f}% in {data.get('assay')}"
+        else:
+            head, item = "potency at the assay floor", str(data.get("assay"))
+        items = out.setdefault(cid, {}).setdefault(head, [])
+        if item not in items:
+            items.append(item)
+    return {k: "; ".join(f"{h} ({', '.join(v)})" for h, v in kinds.items()) for k, kinds in out.items()}
+
+
+def _duration_frame(comp, programs, kin, pk, rows) -> pd.DataFrame:
+    prog_cols = ["intended_profile", "engagement_threshold", "onset_max_s", "duration_min_s", "offset_max_s", "dosing_interval_s"]
+    pr = programs.rename(columns={"name": "program"}) if programs is not None else pd.DataFrame(columns=["program"])
+    for c in prog_cols:
+        if c not in pr.columns:
+            pr[c] = np.nan
+    f = comp.merge(pr[["program"] + prog_cols], on="program", how="left")
+    f = f.merge(kin, on="compound_id", how="left")
+    f = f.merge(_pick_pk(pk), on="compound_id", how="left")
+    f["kd_source"] = np.where(np.isfinite(f["kon_per_M_s"].astype(float)), "measured", None)
+    # affinity from potency when kon and KD were not measured: longest-incubation KD/Ki/Kb, corrected to equilibrium
+    need = f["kon_per_M_s"].isna() & f["koff_per_s"].notna()
+    if need.any() and len(rows):
+        cand = rows[np.isfinite(rows["corrected_affinity_M"].astype(float))].copy()
+        # KD, Ki or Kb first (equilibrium constants), else an IC50/EC50 taken as KD; the longest incubation of those
+        cand["_pref"] = (~cand["readout"].isin(_AFFINITY_READOUTS)).astype(int)
+        cand = cand.sort_values(["compound_id", "_pref", "incubation_s", "potency_id"], ascending=[True, False, True, True],
+                                kind="mergesort").drop_duplicates("compound_id", keep="last")
+        kd_est = cand.set_index("compound_id")["corrected_affinity_M"]
+        label = pd.Series([f"{ro} from {a} corrected to equilibrium" + ("" if ro in _AFFINITY_READOUTS else ", taken as KD")
+                           for ro, a in zip(cand["readout"], cand["assay"])], index=cand["compound_id"].to_numpy(), dtype=object)
+        ids = f.loc[need, "compound_id"]
+        kd = ids.map(kd_est).astype(float)
+        f.loc[need, "kon_per_M_s"] = f.loc[need, "koff_per_s"].astype(float) / kd
+        f.loc[need, "kd_source"] = ids.map(label)
+    f["dosing_interval_s"] = f["dosing_interval_s"].astype(float).fillna(f["pk_dosing_interval_s"].astype(float))
+    return f
+
+
+def _summary(comp, findings, kin, pot, rows, versions) -> pd.DataFrame:
+    s = comp.copy()
+    if findings.empty:
+        s["grade"] = "clear"
+        s["n_findings"] = 0
+        s["top_rule"] = None
+        s["top_severity"] = None
+        s["top_message"] = None
+    else:
+        top = findings.drop_duplicates("compound_id", keep="first").set_index("compound_id")
+        counts = findings.groupby("compound_id").size()
+        s["top_rule"] = s["compound_id"].map(top["rule"])
+        s["top_severity"] = s["compound_id"].map(top["severity"])
+        s["top_message"] = s["compound_id"].map(top["message"])
+        s["grade"] = s["top_severity"].fillna("clear")
+        s["n_findings"] = s["compound_id"].map(counts).fillna(0).astype(int)
+    k = kin.set_index("compound_id")
+    s["residence_time_s"] = s["compound_id"].map(1.0 / k["koff_per_s"].astype(float))
+    s["kinetic_measurement_id"] = s["compound_id"].map(k["kinetic_measurement_id"])
+    if len(pot):
+        best = pot.sort_values(["compound_id", "value_M"], kind="mergesort").drop_duplicates("compound_id").set_index("compound_id")
+        s["best_potency_M"] = s["compound_id"].map(best["value_M"])
+        s["best_potency_readout"] = s["compound_id"].map(best["readout"])
+        s["best_potency_assay"] = s["compound_id"].map(best["assay"])
+        s["best_potency_incubation_s"] = s["compound_id"].map(best["incubation_s"])
+    else:
+        for c in ("best_potency_M", "best_potency_readout", "best_potency_assay", "best_potency_incubation_s"):
+            s[c] = np.nan
+    if len(rows):
+        g = rows.groupby("compound_id")
+        s["max_fold_shift"] = s["compound_id"].map(g["fold_shift"].max())
+        s["corrected_affinity_M"] = s["compound_id"].map(g["corrected_affinity_M"].min())
+    else:
+        s["max_fold_shift"] = np.nan
+        s["corrected_affinity_M"] = np.nan
+    s["ruleset_version"] = s["program"].map(versions)
+    return s
