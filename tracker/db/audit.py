@@ -1,0 +1,175 @@
+"""The tamper-evident audit chain.
+
+Every write appends one :class:`~tracker.db.models.AuditEvent`.  Each event's
+``hash`` is SHA-256 over the canonical JSON (sorted keys, no spaces, UTF-8) of
+all its other fields, ``id`` and ``prev_hash`` included; ``prev_hash`` is the
+hash of the event before it (64 zeros for the first).  Changing, removing or
+re-ordering any stored event therefore breaks the chain at that event, which
+:func:`verify_chain` reports.  On top of that the database refuses UPDATE,
+DELETE (and TRUNCATE on PostgreSQL) of the table outright (21 CFR Part 11
+§11.10(e): changes must not obscure earlier records).
+
+The chain must not fork when two writers append at once: on PostgreSQL the
+appender takes a transaction-scoped advisory lock before reading the last hash;
+on SQLite every writing unit of work begins with ``BEGIN IMMEDIATE``, which
+serialises writers.  Ids are assigned as last id + 1 under that lock, so the
+sequence has no gaps and a deleted event is visible as a missing id.
+
+What the chain cannot show on its own: events cut off the *end* of the table.
+Keep :func:`chain_head` somewhere else (a report, a backup manifest) to anchor it.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import hashlib
+import json
+import math
+from typing import Any
+
+from sqlalchemy import insert, select, text
+from sqlalchemy.orm import Session
+
+from .models import AuditEvent
+
+GENESIS_HASH = "0" * 64
+#: Key of the PostgreSQL advisory lock that serialises appends ("KRTAUDIT" as a number).
+ADVISORY_LOCK_KEY = 0x4B52544155444954
+
+HASHED_FIELDS = ("id", "at", "actor", "action", "entity_type", "entity_id", "before_json", "after_json", "reason", "prev_hash")
+
+
+def _plain(value: Any) -> Any:
+    """JSON-ready copy: numpy scalars to Python, NaN/inf to None, dates to ISO text."""
+    if isinstance(value, dict):
+        return {str(k): _plain(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple, set, frozenset)):
+        items = [_plain(v) for v in value]
+        return sorted(items, key=repr) if isinstance(value, (set, frozenset)) else items
+    if isinstance(value, bool) or value is None or isinstance(value, str):
+        return value
+    if isinstance(value, int):
+        return int(value)
+    if isinstance(value, float):
+        return float(value) if math.isfinite(value) else None
+    if isinstance(value, (dt.datetime, dt.date)):
+        return value.isoformat()
+    if hasattr(value, "item"):  # numpy scalar
+        return _plain(value.item())
+    if hasattr(value, "tolist"):  # numpy array
+        return _plain(value.tolist())
+    return str(value)
+
+
+def canonical_json(value: Any) -> str:
+    """Canonical JSON text: sorted keys, compact separators, UTF-8 characters kept, no NaN."""
+    return json.dumps(_plain(value), sort_keys=True, separators=(",", ":"), ensure_ascii=False, allow_nan=False)
+
+
+def event_hash(fields: dict[str, Any]) -> str:
+    """SHA-256 hex of the canonical JSON of the hashed fields of one event."""
+    payload = {k: fields.get(k) for k in HASHED_FIELDS}
+    return hashlib.sha256(canonical_json(payload).encode("utf-8")).hexdigest()
+
+
+def utc_stamp() -> str:
+    """Now, UTC, ISO-8601 with microseconds: ``2026-03-01T09:15:02.123456+00:00``."""
+    return dt.datetime.now(dt.timezone.utc).isoformat(timespec="microseconds")
+
+
+def _lock_chain(session: Session) -> None:
+    if session.get_bind().dialect.name == "postgresql":
+        session.execute(text("SELECT pg_advisory_xact_lock(CAST(:k AS BIGINT))"), {"k": ADVISORY_LOCK_KEY})
+
+
+def append_event(
+    session: Session,
+    actor: str,
+    action: str,
+    entity_type: str,
+    entity_id: str | int | None,
+    before: Any = None,
+    after: Any = None,
+    reason: str | None = None,
+) -> dict[str, Any]:
+    """Append one event to the chain inside the caller's transaction; returns its stored fields.
+
+    ``before``/``after`` are any JSON-able values (dicts of the record's fields);
+    they are stored as canonical JSON text.  Call inside a writing unit of work.
+    """
+    event = {"actor": actor, "action": action, "entity_type": entity_type, "entity_id": entity_id,
+             "before": before, "after": after, "reason": reason}
+    return append_events(session, [event])[0]
+
+
+def append_events(session: Session, events: list[dict[str, Any]], chunk: int = 5000) -> list[dict[str, Any]]:
+    """Append several events at once (one lock, one read of the head, bulk inserts).
+
+    Each event is a dict with the keys of :func:`append_event`'s arguments
+    (``actor``, ``action``, ``entity_type``, ``entity_id``, ``before``, ``after``, ``reason``).
+    """
+    if not events:
+        return []
+    _lock_chain(session)
+    last = session.execute(select(AuditEvent.id, AuditEvent.hash).order_by(AuditEvent.id.desc()).limit(1)).first()
+    next_id, prev = ((last.id + 1), last.hash) if last else (1, GENESIS_HASH)
+    stored: list[dict[str, Any]] = []
+    for ev in events:
+        fields: dict[str, Any] = {
+            "id": next_id,
+            "at": utc_stamp(),
+            "actor": str(ev["actor"]),
+            "action": str(ev["action"]),
+            "entity_type": str(ev["entity_type"]),
+            "entity_id": None if ev.get("entity_id") is None else str(ev["entity_id"]),
+            "before_json": None if ev.get("before") is None else canonical_json(ev["before"]),
+            "after_json": None if ev.get("after") is None else canonical_json(ev["after"]),
+            "reason": ev.get("reason"),
+            "prev_hash": prev,
+        }
+        fields["hash"] = prev = event_hash(fields)
+        stored.append(fields)
+        next_id += 1
+    for i in range(0, len(stored), chunk):
+        session.execute(insert(AuditEvent), stored[i : i + chunk])
+    return stored
+
+
+def chain_head(session: Session) -> tuple[int, str]:
+    """``(last id, last hash)``, or ``(0, GENESIS_HASH)`` for an empty chain."""
+    last = session.execute(select(AuditEvent.id, AuditEvent.hash).order_by(AuditEvent.id.desc()).limit(1)).first()
+    return (last.id, last.hash) if last else (0, GENESIS_HASH)
+
+
+def verify_chain(session: Session, batch: int = 5000) -> tuple[bool, int | None, str]:
+    """Re-compute every hash and link, in id order.
+
+    Returns ``(ok, first_broken_id, message)``; ``first_broken_id`` is ``None``
+    when the chain is intact.
+    """
+    cols = [getattr(AuditEvent, f) for f in HASHED_FIELDS] + [AuditEvent.hash]
+    prev_hash = GENESIS_HASH
+    expected_id = 1
+    n = 0
+    result = session.execute(select(*cols).order_by(AuditEvent.id).execution_options(yield_per=batch))
+    for row in result:
+        fields = row._asdict()
+        eid = fields["id"]
+        if eid != expected_id:
+            result.close()
+            if eid > expected_id:
+                return False, eid, f"audit event {eid}: events {expected_id}..{eid - 1} are missing"
+            return False, eid, f"audit event {eid}: id out of sequence (expected {expected_id})"
+        if fields["prev_hash"] != prev_hash:
+            result.close()
+            return False, eid, f"audit event {eid}: prev_hash does not match the hash of event {eid - 1}"
+        if event_hash(fields) != fields["hash"]:
+            result.close()
+            return False, eid, f"audit event {eid}: stored hash does not match its contents (edited after it was written)"
+        prev_hash = fields["hash"]
+        expected_id += 1
+        n += 1
+    return True, None, f"audit chain intact: {n} event(s), head {prev_hash[:12]}"
+
+
+__all__ = ["append_event", "append_events", "verify_chain", "chain_head", "canonical_json", "event_hash", "utc_stamp", "GENESIS_HASH", "ADVISORY_LOCK_KEY"]

@@ -1,0 +1,242 @@
+"""Validation of imported tables, column by column, before anything touches the database.
+
+:func:`validate_tables` checks everything that needs no database: header,
+required values, allowed values, units and ranges, dates, per-table rules
+(koff *or* residence time, bounds around their estimate, tmax for oral PK),
+conflicting duplicates; it converts quantities to SI and computes each
+measurement's content hash.  Every problem is collected, never raised one at a
+time.  Checks against stored data (references, stage changes) follow in
+:mod:`tracker.services.importing`.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import re
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+
+from ..domain import canonical
+from ..errors import InputError
+from .columns import parse_quantity_column
+from .reading import RawTable
+from .specs import ORDER, SPECS, TableSpec
+
+_ISO_DATE = re.compile(r"^\d{4}-\d{2}-\d{2}$")
+KD_CONSISTENCY_FOLD = 3.0  # warn when a given KD and koff/kon disagree by more than this (common practice)
+META = ("_label", "_line", "_source_name", "_order")
+
+
+@dataclass
+class Validated:
+    """Validated rows of every table (DataFrames keyed by table), and all problems found."""
+
+    tables: dict[str, pd.DataFrame] = field(default_factory=dict)
+    files: dict[str, list[str]] = field(default_factory=dict)
+    errors: list[InputError] = field(default_factory=list)
+    warnings: list[InputError] = field(default_factory=list)
+
+    @property
+    def rows(self) -> int:
+        return int(sum(len(df) for df in self.tables.values()))
+
+
+def _err(label: str, line: int | None, column: str | None, message: str) -> InputError:
+    return InputError(message, file=label, line=int(line) if line is not None else None, column=column)
+
+
+def _check_header(raw: RawTable, spec: TableSpec) -> list[InputError]:
+    errors = []
+    have = list(raw.cells.columns)
+    for name in spec.required:
+        if name not in have:
+            errors.append(raw.error(raw.header_line, name, f"missing required column (the header must name: {', '.join(spec.required)})"))
+    if spec.name == "kinetics" and "koff" not in have and "residence_time" not in have:
+        errors.append(raw.error(raw.header_line, "koff", "missing column: give koff or residence_time"))
+    for name in have:
+        if name not in spec.names:
+            errors.append(raw.error(raw.header_line, name, f"unknown column for {spec.name} (allowed: {', '.join(spec.names)})"))
+    return errors
+
+
+def _frame(raws: list[RawTable], spec: TableSpec, order_of: dict[str, int]) -> tuple[pd.DataFrame, list[InputError]]:
+    errors: list[InputError] = []
+    parts = []
+    for raw in raws:
+        if raw.errors:
+            continue
+        header_errors = _check_header(raw, spec)
+        if header_errors:
+            errors.extend(header_errors)
+            continue
+        df = raw.cells.reindex(columns=list(spec.names)).astype(object)
+        df = df.where(df.notna(), None)
+        df["_label"] = raw.label
+        df["_line"] = np.asarray(raw.lines, dtype=np.int64)
+        df["_source_name"] = raw.source_name
+        df["_order"] = order_of[raw.label]
+        parts.append(df)
+    if not parts:
+        return pd.DataFrame(columns=list(spec.names) + list(META)), errors
+    return pd.concat(parts, ignore_index=True), errors
+
+
+def validate_tables(raws: list[RawTable]) -> Validated:
+    """Validate every table read for one import; see the module docstring."""
+    out = Validated()
+    order_of = {raw.label: i for i, raw in enumerate(raws)}
+    for name in ORDER:
+        mine = [r for r in raws if r.table == name]
+        if not mine:
+            continue
+        spec = SPECS[name]
+        out.files[name] = [r.label for r in mine]
+        df, errors = _frame(mine, spec, order_of)
+        out.errors.extend(errors)
+        df, errors, warnings = _validate_rows(df, spec)
+        out.errors.extend(errors)
+        out.warnings.extend(warnings)
+        out.tables[name] = df
+    out.errors.sort(key=lambda e: _sort_key(e, order_of))
+    out.warnings.sort(key=lambda e: _sort_key(e, order_of))
+    return out
+
+
+def _sort_key(e: InputError, order_of: dict[str, int]):
+    loc = e.location
+    if loc is None:
+        return (-1, 0, "")
+    return (order_of.get(loc.file, -1), loc.line or 0, loc.column or "")
+
+
+def _validate_rows(df: pd.DataFrame, spec: TableSpec) -> tuple[pd.DataFrame, list[InputError], list[InputError]]:
+    errors: list[InputError] = []
+    warnings: list[InputError] = []
+    bad = np.zeros(len(df), dtype=bool)
+    labels = df["_label"].to_numpy()
+    lines = df["_line"].to_numpy()
+
+    def flag(positions, column: str, message_or_fn) -> None:
+        for pos in positions:
+            msg = message_or_fn(pos) if callable(message_or_fn) else message_or_fn
+            errors.append(_err(labels[pos], lines[pos], column, msg))
+            bad[pos] = True
+
+    for col in spec.columns:
+        series = df[col.name]
+        nul = series.map(lambda v: isinstance(v, str) and "\x00" in v).to_numpy(dtype=bool)
+        flag(np.flatnonzero(nul), col.name, "NUL character (byte 0x00) in the cell; remove it")
+        if col.required:
+            flag(np.flatnonzero(series.isna().to_numpy()), col.name, "missing value (required)")
+        if col.kind in ("text", "ref"):
+            lengths = series.map(lambda v: len(v) if isinstance(v, str) else 0).to_numpy()
+            flag(np.flatnonzero(lengths > col.max_len), col.name, f"longer than {col.max_len} characters")
+        elif col.kind == "enum":
+            values = series.dropna().unique()
+            mapping = {v: canonical(v, col.choices) for v in values}
+            unknown = series.map(lambda v, m=mapping: v is not None and m.get(v) is None).to_numpy(dtype=bool)
+            flag(np.flatnonzero(unknown), col.name, lambda p, s=series, c=col: f"unknown {c.name} {s.iloc[p]!r} (allowed: {', '.join(c.choices)})")
+            df[col.name] = series.map(lambda v, m=mapping: m.get(v) if v is not None else None)
+        elif col.kind == "date":
+            present = series.notna().to_numpy()
+            shaped = series.map(lambda v: bool(_ISO_DATE.match(v)) if isinstance(v, str) else False).to_numpy(dtype=bool)
+            parsed = pd.to_datetime(series.where(shaped), format="%Y-%m-%d", errors="coerce")
+            wrong = present & (~shaped | parsed.isna().to_numpy())
+            flag(np.flatnonzero(wrong), col.name, lambda p, s=series: f"not a date: {s.iloc[p]!r} (write YYYY-MM-DD)")
+            df[col.db] = [d.date() if not pd.isna(d) else None for d in parsed]
+        elif col.is_quantity:
+            res = parse_quantity_column(series, col.kind, positive=col.positive, low=col.low, high=col.high)
+            for pos, msg in res.errors:
+                errors.append(_err(labels[pos], lines[pos], col.name, msg))
+                bad[pos] = True
+            for pos, msg in res.warnings:
+                warnings.append(_err(labels[pos], lines[pos], col.name, msg))
+            if col.db:
+                df[col.db] = res.si
+                df[col.text_db] = series
+            else:
+                df[f"_{col.name}_si"] = res.si
+
+    if spec.name == "kinetics":
+        _kinetics_rules(df, flag, warnings, labels, lines)
+    if spec.name == "pk":
+        oral_no_tmax = ((df["route"] == "oral") & df["tmax"].isna()).to_numpy(dtype=bool)
+        flag(np.flatnonzero(oral_no_tmax), "tmax", "tmax is required for oral PK")
+    if "source" in df.columns:
+        df["source"] = df["source"].where(df["source"].notna(), df["_source_name"])
+    if spec.key:
+        _entity_duplicates(df, spec, flag)
+    if spec.hashed:
+        df["content_hash"] = content_hashes(df, spec)
+    df["_bad"] = bad
+    return df, errors, warnings
+
+
+def _kinetics_rules(df: pd.DataFrame, flag, warnings, labels, lines) -> None:
+    has_koff = df["koff"].notna().to_numpy()
+    has_rt = df["residence_time"].notna().to_numpy()
+    flag(np.flatnonzero(~has_koff & ~has_rt), "koff", "give koff or residence_time")
+    flag(np.flatnonzero(has_koff & has_rt), "residence_time", "give koff or residence_time, not both")
+    rt = df["_residence_time_si"].to_numpy(dtype=float)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        from_rt = 1.0 / rt
+    use_rt = has_rt & ~has_koff
+    df["koff_per_s"] = np.where(use_rt, from_rt, df["koff_per_s"].to_numpy(dtype=float))
+    df["koff_text"] = np.where(use_rt, df["residence_time"], df["koff_text"])
+    df["koff_given_as"] = np.where(use_rt, "residence_time", "koff")
+    for name, lo, hi in (("kon", "kon_low", "kon_high"), ("koff", "koff_low", "koff_high")):
+        si = df[f"{name}_per_M_s" if name == "kon" else "koff_per_s"].to_numpy(dtype=float)
+        low = df[f"{lo}_per_M_s" if name == "kon" else f"{lo}_per_s"].to_numpy(dtype=float)
+        high = df[f"{hi}_per_M_s" if name == "kon" else f"{hi}_per_s"].to_numpy(dtype=float)
+        with np.errstate(invalid="ignore"):
+            flag(np.flatnonzero(low > si), lo, f"lower bound is above the {name} estimate")
+            flag(np.flatnonzero(high < si), hi, f"upper bound is below the {name} estimate")
+            flag(np.flatnonzero(low > high), hi, "upper bound is below the lower bound")
+    kon = df["kon_per_M_s"].to_numpy(dtype=float)
+    koff = df["koff_per_s"].to_numpy(dtype=float)
+    kd = df["kd_M"].to_numpy(dtype=float)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        ratio = kd / (koff / kon)
+    off = np.isfinite(ratio) & ((ratio > KD_CONSISTENCY_FOLD) | (ratio < 1 / KD_CONSISTENCY_FOLD))
+    for pos in np.flatnonzero(off):
+        warnings.append(
+            _err(labels[pos], lines[pos], "kd", f"kd differs from koff/kon = {koff[pos] / kon[pos]:.3g} M by {max(ratio[pos], 1 / ratio[pos]):.3g}-fold")
+        )
+
+
+def _entity_duplicates(df: pd.DataFrame, spec: TableSpec, flag) -> None:
+    key = spec.key
+    cols = [c.name for c in spec.columns]
+    present = df[key].notna()
+    dup = df[present & df.duplicated(subset=[key], keep=False)]
+    if dup.empty:
+        return
+    for _, group in dup.groupby(key, sort=False):
+        first = group.index[0]
+        base = tuple(group.loc[first, cols])
+        for pos in group.index[1:]:
+            if tuple(group.loc[pos, cols]) != base:
+                flag([pos], key, f"{key} {df.at[pos, key]!r} is also on {group.at[first, '_label']} line {group.at[first, '_line']} with different values")
+
+
+def content_hashes(df: pd.DataFrame, spec: TableSpec) -> list[str]:
+    """SHA-256 per row over the table name, the row's text cells (``source`` excluded) and its occurrence number.
+
+    Identical rows within one import are replicates and get occurrence numbers
+    0, 1, ...; re-importing the same rows yields the same hashes, so nothing is
+    added twice.
+    """
+    cols = [c.name for c in spec.columns if c.name != "source"]
+    if df.empty:
+        return []
+    payload = pd.Series(
+        ["\x1f".join("" if v is None or (isinstance(v, float) and np.isnan(v)) else str(v) for v in row) for row in zip(*(df[c] for c in cols))],
+        index=df.index,
+    )
+    occurrence = payload.groupby(payload, sort=False).cumcount()
+    return [hashlib.sha256(f"{spec.name}\x1e{p}\x1e{k}".encode()).hexdigest() for p, k in zip(payload, occurrence)]
+
+
+__all__ = ["Validated", "validate_tables", "content_hashes"]

@@ -1,0 +1,427 @@
+"""Import and export use cases: ``krt import`` / ``krt export`` and the dashboard's upload.
+
+An import is all or nothing.  Files are read and validated first (units,
+ranges, allowed values, duplicates); then, inside one writing transaction, the
+rows are checked against stored data (unknown programs and compounds, stage
+changes of existing compounds) and written in dependency order with bulk
+inserts.  Any problem anywhere raises :class:`~tracker.errors.ImportErrors`
+listing every one as ``file:line: column: message``, and nothing is written.
+
+Re-importing the same rows adds nothing: measurements carry a content hash
+unique per compound, programs and compounds are matched by name.  A stage
+change of an existing compound is refused (stages change through gates);
+other changed fields of programs and compounds are updated and audited with
+their before and after values.  Every import appends audit events: one per
+program or compound created or updated, one summary per measurement table.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import math
+import sys
+from collections.abc import Iterable
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any, TextIO
+
+import numpy as np
+import pandas as pd
+from sqlalchemy import Engine, func, insert, select, update
+from sqlalchemy import exc as sa_exc
+from sqlalchemy.orm import Session
+
+from ..db.audit import append_events
+from ..db.models import Compound, KineticMeasurement, PKProfile, Potency, Program, StageHistory, User
+from ..db.session import with_retry
+from ..db.uow import UnitOfWork
+from ..errors import ImportErrors, InputError, PermissionDenied
+from ..errors import IntegrityError as KrtIntegrityError
+from ..io.reading import gather
+from ..io.specs import COMPOUNDS, PROGRAMS, SPECS
+from ..io.validate import Validated, validate_tables
+
+PROGRESS_THRESHOLD = 5_000  # rows; larger imports show progress on stderr
+CHUNK = 5_000
+WRITER_ROLES = ("lead", "scientist")
+
+MODELS = {"potency": Potency, "kinetics": KineticMeasurement, "pk": PKProfile}
+_PROGRAM_FIELDS = ("target", "intended_profile", "engagement_threshold", "onset_max", "duration_min", "offset_max", "dosing_interval")
+
+
+class Progress:
+    """A plain progress line on stderr; no dependency.  Silent unless enabled."""
+
+    def __init__(self, enabled: bool, stream: TextIO | None = None):
+        self.enabled = enabled
+        self.stream = stream or sys.stderr
+        self._tty = bool(getattr(self.stream, "isatty", lambda: False)())
+
+    def say(self, text: str, *, transient: bool = False) -> None:
+        if not self.enabled:
+            return
+        if self._tty and transient:
+            self.stream.write(f"\rkrt: {text}\x1b[K")
+        else:
+            self.stream.write(("\r" if self._tty else "") + f"krt: {text}\n")
+        self.stream.flush()
+
+
+# ------------------------------------------------------------------ import
+def import_path(
+    target: Engine | UnitOfWork,
+    path: str | Path,
+    table: str | None = None,
+    actor: str = "cli",
+    *,
+    progress: bool | None = None,
+    stream: TextIO | None = None,
+) -> dict[str, Any]:
+    """Import a CSV file, an ``.xlsx`` workbook or a folder of them; returns a summary dict.
+
+    ``target`` is an engine (a writing unit of work is opened, committed and
+    retried on transient lock errors) or an open :class:`UnitOfWork` (the
+    caller commits).  ``progress=None`` shows progress for imports over
+    5,000 rows.  Raises :class:`ImportErrors` with every problem; then nothing
+    has been written.
+    """
+    path = Path(path)
+    raws, source_errors = gather(path, table)
+    validated = validate_tables(raws)
+    errors = source_errors + [e for e in validated.errors if e not in source_errors]
+    if errors:  # report stored-data problems too, so one run lists everything
+        if isinstance(target, UnitOfWork):
+            errors += _resolve(target.session, validated)[1]
+        else:
+            with UnitOfWork(target, write=False) as uow:
+                errors += _resolve(uow.session, validated)[1]
+        order = {raw.label: i for i, raw in enumerate(raws)}
+        errors.sort(key=lambda e: (order.get(e.location.file, -1), e.location.line or 0) if e.location else (-2, 0))
+        raise ImportErrors(errors)
+    show = progress if progress is not None else validated.rows > PROGRESS_THRESHOLD
+    prog = Progress(show, stream)
+    prog.say(f"validated {validated.rows:,} rows from {sum(len(f) for f in validated.files.values())} file(s)")
+
+    def run(uow: UnitOfWork) -> dict[str, Any]:
+        return _write(uow.session, validated, actor, prog)
+
+    if isinstance(target, UnitOfWork):
+        summary = run(target)
+    else:
+        def attempt():
+            with UnitOfWork(target) as uow:
+                result = run(uow)
+                uow.commit()
+                return result
+
+        try:
+            summary = with_retry(attempt)
+        except sa_exc.IntegrityError:
+            # another writer stored some of the same rows meanwhile: once more, against the new state
+            try:
+                summary = with_retry(attempt)
+            except sa_exc.IntegrityError as exc:
+                first = str(exc.orig).strip().splitlines()[0] if str(exc.orig).strip() else "constraint violated"
+                raise KrtIntegrityError(f"the database refused the import ({first}); nothing was written") from None
+    summary["warnings"] = [w.one_line() for w in validated.warnings]
+    summary["path"] = str(path)
+    prog.say("import committed")
+    return summary
+
+
+def _check_actor(session: Session, actor: str) -> None:
+    """Once users exist, only an active lead or scientist may import."""
+    if session.execute(select(func.count()).select_from(User)).scalar_one() == 0:
+        return
+    row = session.execute(select(User.role, User.active).where(User.name == actor)).first()
+    if row is None:
+        raise PermissionDenied(f"unknown user {actor!r}: imports are recorded under a registered user (pass --by NAME)")
+    if not row.active or row.role not in WRITER_ROLES:
+        raise PermissionDenied(f"user {actor!r} ({row.role}{'' if row.active else ', inactive'}) may not import data; leads and scientists may")
+
+
+def _records(df: pd.DataFrame, columns: dict[str, str]) -> list[dict[str, Any]]:
+    """Rows as dicts ``{db_column: python value}`` with NaN/NA as ``None`` and numpy scalars unwrapped."""
+    out_cols = {}
+    for db_col, src in columns.items():
+        values = df[src].tolist()
+        out_cols[db_col] = [_py(v) for v in values]
+    n = len(df)
+    return [{k: out_cols[k][i] for k in out_cols} for i in range(n)]
+
+
+def _py(v: Any) -> Any:
+    if v is None:
+        return None
+    if isinstance(v, float):
+        return None if math.isnan(v) else float(v)
+    if isinstance(v, np.generic):
+        v = v.item()
+        return None if isinstance(v, float) and math.isnan(v) else v
+    if v is pd.NA or v is pd.NaT:
+        return None
+    return v
+
+
+def _db_columns(spec, skip: Iterable[str] = ()) -> dict[str, str]:
+    """Mapping db column -> DataFrame column for a spec's plain and quantity columns."""
+    cols: dict[str, str] = {}
+    for c in spec.columns:
+        if c.name in skip or c.db is None or c.kind == "ref":
+            continue
+        if c.is_quantity:
+            cols[c.db] = c.db
+            cols[c.text_db] = c.text_db
+        elif c.kind == "date":
+            cols[c.db] = c.db
+        else:
+            cols[c.db] = c.name
+    return cols
+
+
+def _write(session: Session, v: Validated, actor: str, prog: Progress) -> dict[str, Any]:
+    _check_actor(session, actor)
+    now = dt.datetime.now(dt.timezone.utc)
+    programs_df = v.tables.get("programs", pd.DataFrame(columns=list(PROGRAMS.names))).drop_duplicates(subset=["program"])
+    compounds_df = v.tables.get("compounds", pd.DataFrame(columns=list(COMPOUNDS.names))).drop_duplicates(subset=["compound"])
+
+    snap, errors = _resolve(session, v)
+    if errors:
+        raise ImportErrors(errors)
+    stored_programs, stored_compounds = snap.programs, snap.compounds
+    program_ids = dict(zip(stored_programs["name"], stored_programs["id"]))
+    compound_rows = stored_compounds.set_index("name", drop=False)
+
+    summary: dict[str, Any] = {"tables": {}, "files": [f for fs in v.files.values() for f in fs]}
+    events: list[dict[str, Any]] = []
+    reason = f"import of {', '.join(summary['files'])}"
+
+    # -- programs
+    if "programs" in v.tables:
+        new = programs_df[~programs_df["program"].isin(program_ids.keys())]
+        rows = _records(new, {"name": "program", **_db_columns(PROGRAMS, skip=("program",))})
+        for r in rows:
+            r["created_at"] = now
+        # plain executemany, no RETURNING: psycopg converts a short statement once instead of one huge VALUES list
+        for i in range(0, len(rows), CHUNK):
+            session.execute(insert(Program), rows[i : i + CHUNK])
+        if rows:
+            program_ids.update(dict(session.execute(select(Program.name, Program.id).where(Program.created_at == now)).all()))
+        created = {r["name"]: r for r in rows}
+        for name, r in created.items():
+            events.append(_event(actor, "create", "program", program_ids[name], None, _public(r), reason))
+        updated = _update_programs(session, programs_df, stored_programs, actor, reason, events)
+        summary["tables"]["programs"] = _stat(v, "programs", len(rows), updated, len(programs_df) - len(rows) - updated)
+
+    program_names = {i: n for n, i in program_ids.items()}
+
+    # -- compounds (+ stage history of new ones)
+    if "compounds" in v.tables:
+        existing = compounds_df["compound"].isin(compound_rows.index)
+        new = compounds_df[~existing].copy()
+        new["_program_id"] = new["program"].map(program_ids)
+        rows = _records(new, {"name": "compound", "program_id": "_program_id", **_db_columns(COMPOUNDS, skip=("compound",))})
+        for r in rows:
+            r["created_at"] = now
+        for i in range(0, len(rows), CHUNK):
+            session.execute(insert(Compound), rows[i : i + CHUNK])
+            prog.say(f"compounds {min(i + CHUNK, len(rows)):,}/{len(rows):,}", transient=True)
+        new_ids: dict[str, int] = {}
+        if rows:
+            new_ids = dict(session.execute(select(Compound.name, Compound.id).where(Compound.created_at == now)).all())
+        files_of = dict(zip(new["compound"], new["_label"]))
+        history = [
+            {"compound_id": new_ids[r["name"]], "from_stage": None, "to_stage": r["stage"], "at": now, "by_user": actor,
+             "decision_id": None, "note": f"created by import of {files_of[r['name']]}"}
+            for r in rows
+        ]
+        for i in range(0, len(history), CHUNK):
+            session.execute(insert(StageHistory), history[i : i + CHUNK])
+        for r in rows:
+            after = _public(r) | {"program": program_names[r["program_id"]]}
+            events.append(_event(actor, "create", "compound", new_ids[r["name"]], None, after, reason))
+        updated = _update_compounds(session, compounds_df[existing], compound_rows, actor, reason, events)
+        summary["tables"]["compounds"] = _stat(v, "compounds", len(rows), updated, int(existing.sum()) - updated)
+        compound_ids = dict(zip(stored_compounds["name"], stored_compounds["id"])) | new_ids
+    else:
+        compound_ids = dict(zip(stored_compounds["name"], stored_compounds["id"]))
+
+    # -- measurements
+    for name, model in MODELS.items():
+        if name not in v.tables:
+            continue
+        df = v.tables[name]
+        spec = SPECS[name]
+        ids = df["compound"].map(compound_ids)
+        stored = {tuple(r) for r in session.execute(select(model.compound_id, model.content_hash))}
+        keys = list(zip(ids.tolist(), df["content_hash"].tolist()))
+        is_new = np.array([k not in stored for k in keys], dtype=bool)
+        # replicate rows identical within one import have distinct hashes already (occurrence number)
+        new = df[is_new].copy()
+        new["_compound_id"] = ids[is_new]
+        cols = {"compound_id": "_compound_id", **_db_columns(spec, skip=("compound",)), "content_hash": "content_hash"}
+        if name == "kinetics":
+            cols.update({"koff_per_s": "koff_per_s", "koff_text": "koff_text", "koff_given_as": "koff_given_as"})
+        rows = _records(new, cols)
+        for r in rows:
+            r["created_at"] = now
+        for i in range(0, len(rows), CHUNK):
+            session.execute(insert(model), rows[i : i + CHUNK])
+            prog.say(f"{name} {min(i + CHUNK, len(rows)):,}/{len(rows):,}", transient=True)
+        inserted: list[int] = []
+        if rows:
+            mine = {(r["compound_id"], r["content_hash"]) for r in rows}
+            got = session.execute(select(model.id, model.compound_id, model.content_hash).where(model.created_at == now)).all()
+            inserted = [i for i, c, h in got if (c, h) in mine]
+        summary["tables"][name] = _stat(v, name, len(rows), 0, len(df) - len(rows))
+        if rows:
+            events.append(
+                _event(actor, "import", model.__tablename__, None, None,
+                       {"files": v.files[name], "rows": len(df), "inserted": len(rows), "duplicates_skipped": len(df) - len(rows),
+                        "ids": sorted(inserted)}, reason)
+            )
+
+    append_events(session, events)
+    summary["audit_events"] = len(events)
+    return summary
+
+
+@dataclass
+class _Snapshot:
+    programs: pd.DataFrame
+    compounds: pd.DataFrame
+
+
+def _resolve(session: Session, v: Validated) -> tuple[_Snapshot, list[InputError]]:
+    """Stored programs and compounds, and the errors of ``v`` against them (references, stage changes)."""
+    prog_cols = [Program.id, Program.name] + [getattr(Program, n) for n in _program_db_cols()]
+    stored_programs = pd.DataFrame(session.execute(select(*prog_cols)).all(), columns=[c.key for c in prog_cols])
+    stored_compounds = pd.DataFrame(
+        session.execute(select(Compound.id, Compound.name, Compound.program_id, Compound.stage, Compound.series, Compound.smiles)).all(),
+        columns=["id", "name", "program_id", "stage", "series", "smiles"],
+    )
+    programs_df = v.tables.get("programs", pd.DataFrame(columns=list(PROGRAMS.names)))
+    compounds_df = v.tables.get("compounds", pd.DataFrame(columns=list(COMPOUNDS.names) + ["_label", "_line"]))
+    program_names = dict(zip(stored_programs["id"], stored_programs["name"]))
+    compound_rows = stored_compounds.set_index("name", drop=False)
+    errors = _reference_errors(
+        v,
+        set(stored_programs["name"]) | set(programs_df["program"].dropna()),
+        set(stored_compounds["name"]) | set(compounds_df["compound"].dropna()),
+    )
+    errors += _change_errors(compounds_df.drop_duplicates(subset=["compound"]), compound_rows, program_names)
+    return _Snapshot(stored_programs, stored_compounds), errors
+
+
+def _program_db_cols() -> list[str]:
+    cols = []
+    for n in _PROGRAM_FIELDS:
+        c = PROGRAMS.col(n)
+        cols += [c.db, c.text_db] if c.is_quantity else [c.db]
+    return cols
+
+
+def _stat(v: Validated, table: str, inserted: int, updated: int, unchanged: int) -> dict[str, Any]:
+    return {"files": v.files.get(table, []), "rows": len(v.tables.get(table, [])), "inserted": inserted, "updated": updated, "unchanged": unchanged}
+
+
+def _public(row: dict[str, Any]) -> dict[str, Any]:
+    return {k: (v.isoformat() if isinstance(v, (dt.date, dt.datetime)) else v) for k, v in row.items() if k != "created_at" and not k.startswith("_")}
+
+
+def _event(actor, action, entity_type, entity_id, before, after, reason) -> dict[str, Any]:
+    return {"actor": actor, "action": action, "entity_type": entity_type, "entity_id": entity_id, "before": before, "after": after, "reason": reason}
+
+
+def _reference_errors(v: Validated, programs: set[str], compounds: set[str]) -> list[InputError]:
+    errors: list[InputError] = []
+    checks = [("compounds", "program", programs, "program")] + [(t, "compound", compounds, "compound") for t in MODELS]
+    for table, col, known, word in checks:
+        df = v.tables.get(table)
+        if df is None or df.empty:
+            continue
+        unknown = df[df[col].notna() & ~df[col].isin(known)]
+        for label, line, value in zip(unknown["_label"], unknown["_line"], unknown[col]):
+            errors.append(InputError(f"unknown {word} {value!r} (not in the database or in this import)", file=label, line=int(line), column=col))
+    return errors
+
+
+def _change_errors(compounds_df: pd.DataFrame, stored: pd.DataFrame, program_names: dict[int, str]) -> list[InputError]:
+    """Stage or program changes of stored compounds (vectorised: one merge, then only the offending rows)."""
+    errors: list[InputError] = []
+    if compounds_df.empty or stored.empty:
+        return errors
+    both = compounds_df.merge(stored.reset_index(drop=True), left_on="compound", right_on="name", suffixes=("", "_db"))
+    if both.empty:
+        return errors
+    stage_changed = (both["stage"].notna() & (both["stage"] != both["stage_db"])).to_numpy(dtype=bool)
+    for name, stage, stage_db, label, line in both.loc[stage_changed, ["compound", "stage", "stage_db", "_label", "_line"]].itertuples(index=False, name=None):
+        errors.append(InputError(
+            f"stage changes go through gates: {name} is {stage_db!r} in the database, the file says {stage!r}",
+            file=label, line=int(line), column="stage"))
+    have = both["program_id"].map(program_names)
+    moved = (both["program"].notna() & (both["program"] != have)).to_numpy(dtype=bool)
+    for (name, label, line), h in zip(both.loc[moved, ["compound", "_label", "_line"]].itertuples(index=False, name=None), have[moved]):
+        errors.append(InputError(
+            f"{name} belongs to program {h!r}; moving a compound between programs is not done by import",
+            file=label, line=int(line), column="program"))
+    return errors
+
+
+def _update_programs(session, df, stored, actor, reason, events) -> int:
+    if df.empty or stored.empty:
+        return 0
+    stored = stored.set_index("name")
+    both = df[df["program"].isin(stored.index)]
+    updates = []
+    for _, r in both.iterrows():
+        s = stored.loc[r["program"]]
+        before, after = {}, {}
+        for n in _PROGRAM_FIELDS:
+            c = PROGRAMS.col(n)
+            text_col = c.text_db if c.is_quantity else c.db
+            new_text = r[text_col] if c.is_quantity else r[n]
+            if new_text is None or new_text == s[text_col]:
+                continue  # an empty cell never clears a stored value
+            before[text_col], after[text_col] = _py(s[text_col]), new_text
+            if c.is_quantity:
+                before[c.db], after[c.db] = _py(s[c.db]), _py(r[c.db])
+        if after:
+            updates.append({"id": int(s["id"]), **after})
+            events.append(_event(actor, "update", "program", int(s["id"]), before, after, reason))
+    if updates:
+        session.execute(update(Program), updates)
+    return len(updates)
+
+
+def _update_compounds(session, df, stored, actor, reason, events) -> int:
+    """Update series/smiles of stored compounds where the file gives a different non-empty value."""
+    if df.empty:
+        return 0
+    both = df[["compound", "series", "smiles"]].merge(
+        stored.reset_index(drop=True)[["name", "id", "series", "smiles"]], left_on="compound", right_on="name", suffixes=("", "_db"))
+    changed = {f: both[f].notna() & (both[f] != both[f"{f}_db"]) for f in ("series", "smiles")}
+    any_change = changed["series"] | changed["smiles"]
+    updates = []
+    for pos in np.flatnonzero(any_change.to_numpy()):
+        row = both.iloc[pos]
+        before, after = {}, {}
+        for f in ("series", "smiles"):
+            if changed[f].iloc[pos]:
+                before[f], after[f] = _py(row[f"{f}_db"]), row[f]
+        updates.append({"id": int(row["id"]), **after})
+        events.append(_event(actor, "update", "compound", int(row["id"]), before, after, reason))
+    if updates:
+        session.execute(update(Compound), updates)
+    return len(updates)
+
+
+# ------------------------------------------------------------------ export
+def export_all(engine: Engine, out_dir: str | Path, xlsx: str | Path | None = None) -> dict[str, Any]:
+    """Write every table of the format to ``out_dir`` (CSV) and optionally one ``.xlsx`` workbook."""
+    from ..io.export import export_tables
+
+    return export_tables(engine, Path(out_dir), Path(xlsx) if xlsx else None)
+
+
+__all__ = ["import_path", "export_all", "Progress", "PROGRESS_THRESHOLD"]
