@@ -234,10 +234,10 @@ COUNTED = {
 
 
 def table_counts(bind: Bind) -> pd.DataFrame:
-    """Rows per table plus ``saved_fits`` (kinetic measurements with a stored fit), in one query."""
+    """Rows per table plus ``saved_fits`` (fits saved with their raw time course, every method), in one query."""
     parts = [select(literal(name).label("table"), func.count().label("rows")).select_from(model) for name, model in COUNTED.items()]
     parts.append(
-        select(literal("saved_fits").label("table"), func.count().label("rows")).select_from(KineticMeasurement).where(KineticMeasurement.fit_json.is_not(None))
+        select(literal("saved_fits").label("table"), func.count().label("rows")).select_from(TimeCourse).where(TimeCourse.meta_json.is_not(None))
     )
     stmt = union_all(*parts)
     if isinstance(bind, Engine):
