@@ -1,0 +1,129 @@
+"""Chart builders, the palette and the read layer the pages use."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from tracker.ui import charts, data, theme
+
+
+def _layers(spec: dict) -> list[dict]:
+    if "layer" in spec:
+        return [leaf for layer in spec["layer"] for leaf in _layers(layer)]
+    if "spec" in spec:
+        return _layers(spec["spec"])
+    return [spec]
+
+
+def _titles(chart) -> set[str]:
+    out = set()
+    for layer in _layers(chart.to_dict()):
+        for ch in ("x", "y"):
+            enc = layer.get("encoding", {}).get(ch, {})
+            if isinstance(enc, dict) and enc.get("title"):
+                out.add(enc["title"])
+    return out
+
+
+def _values(chart, field: str) -> list[float]:
+    spec = chart.to_dict()
+    vals = []
+    for rows in spec.get("datasets", {}).values():
+        vals += [r[field] for r in rows if field in r and r[field] is not None]
+    return vals
+
+
+def test_every_axis_title_names_its_unit():
+    aff = charts.apparent_affinity_chart(
+        charts.apparent_affinity_frame(1e-9, 1 / 21600, np.geomspace(60, 86400, 20)),
+        pd.DataFrame({"incubation_h": [1.0], "value_nM": [4.0], "assay": ["a"], "readout": ["KD"]}), rt_h=6.0, kd_nM=1.0)
+    eng = charts.engagement_chart(charts.engagement_frame({"t_s": np.linspace(0, 86400, 50), "conc_M": np.full(50, 1e-8),
+                                                           "occupancy": np.linspace(0, 0.9, 50), "occupancy_rapid": np.full(50, 0.9)}),
+                                  threshold=0.5, onset_max_h=2.0, offset_max_h=8.0)
+    kmap = charts.kinetic_map_chart(pd.DataFrame({"compound": ["A"], "series": ["s"], "stage": ["hit"], "grade_label": [theme.grade_label("high")],
+                                                  "kon": [1e6], "koff": [1e-4], "rt_text": ["2.8 h"], "kd_nM": [0.1]}),
+                                    floor_kd_M=2e-10, incubation_s=3600)
+    units = {"(h, log scale)", "(nM, log scale)", "(h)", "(% occupied)", "(1/s, log scale)", "(1/(M·s), log scale)"}
+    for chart in (aff, eng, kmap):
+        titles = _titles(chart)
+        assert titles, chart
+        for t in titles:
+            assert any(u in t for u in units), t
+
+
+def test_log_axes_never_receive_zero_or_negative_values():
+    curve = pd.DataFrame({"incubation_h": [0.0, 0.5, 1.0], "apparent_nM": [5.0, -1.0, 2.0], "fold": [1.0, 1.0, 1.0]})
+    measured = pd.DataFrame({"incubation_h": [0.0, 1.0], "value_nM": [3.0, 0.0], "assay": ["a", "b"], "readout": ["KD", "KD"]})
+    chart = charts.apparent_affinity_chart(curve, measured, rt_h=None, kd_nM=None)
+    assert min(_values(chart, "incubation_h")) > 0
+    assert min(_values(chart, "apparent_nM")) > 0
+    assert _values(chart, "value_nM") == []  # the only measured row on the log axes had a zero
+
+
+def test_a_dose_response_fit_drops_zero_concentrations_from_its_log_axis():
+    from tracker.kinetics.fitting import fit_ki_shift
+
+    conc = np.tile(np.r_[0.0, np.geomspace(1e-10, 1e-6, 9)], 2)
+    inc = np.repeat([1800.0, 14400.0], 10)
+    ic50 = np.where(inc == 1800.0, 3e-8, 3e-9)
+    y = 100 / (1 + np.where(conc > 0, conc / ic50, 0.0))
+    fit = fit_ki_shift(conc, y, inc)
+    raw = pd.DataFrame({"concentration_M": conc, "signal": y, "incubation_s": inc})
+    points, curves, x_title, kind = charts.fit_frames(fit.to_dict(), raw)
+    assert kind == "conc" and "nM" in x_title
+    assert (points["x"] > 0).all() and len(points) == 18
+    assert set(curves["curve"]) == set(fit.curve_labels)
+    assert curves[["lo", "hi"]].notna().all().all()
+
+
+def test_predicted_fold_reproduces_the_residence_time_rule_of_thumb():
+    # common practice: RT 6 h, KD 1 nM in saturation binding reads ~20 nM after 10 min and ~4 nM after 1 h.
+    # The page's vectorised dispatch must land on the same model: computed 25.4x and 4.62x; tolerance 30 % / 20 %
+    # (the trade figures are round numbers).
+    fold = data.predicted_fold(koff=np.full(2, 1 / 21600), kon=np.full(2, (1 / 21600) / 1e-9), kd=np.full(2, 1e-9),
+                               incubation=np.array([600.0, 3600.0]), fmt=np.array(["binding", "binding"], object),
+                               tracer_conc=np.full(2, np.nan), tracer_kd=np.full(2, np.nan), tracer_rt=np.full(2, np.nan))
+    assert fold[0] == pytest.approx(20, rel=0.30)
+    assert fold[1] == pytest.approx(4, rel=0.20)
+
+
+def test_predicted_fold_is_missing_without_kinetics():
+    fold = data.predicted_fold(koff=np.array([np.nan]), kon=np.array([np.nan]), kd=np.array([np.nan]),
+                               incubation=np.array([3600.0]), fmt=np.array(["binding"], object), tracer_conc=np.array([np.nan]),
+                               tracer_kd=np.array([np.nan]), tracer_rt=np.array([np.nan]))
+    assert np.isnan(fold[0])
+
+
+def test_every_grade_the_grader_can_give_has_one_colour_and_one_label():
+    from tracker.rules.config import GRADES
+
+    for g in GRADES:
+        style = theme.grade_style(g)
+        assert style is not theme.UNGRADED, g
+    labels = [theme.grade_label(g) for g in GRADES]
+    colours = [theme.grade_style(g).colour for g in GRADES]
+    assert len(set(labels)) == len(GRADES) and len(set(colours)) == len(GRADES)
+    assert theme.grade_label(None) == theme.UNGRADED.badge
+
+
+def test_the_summary_query_filters_in_sql(shared_engine, demo_graded):
+    everything = data.read_compound_summary(shared_engine)
+    assert set(everything["compound"]) == set(demo_graded)
+    only = data.read_compound_summary(shared_engine, data.SummaryFilter(program="Tallowmoor", stages=("hit-to-lead",)))
+    expected = {n for n, g in demo_graded.items() if g["program"] == "Tallowmoor" and g["stage"] == "hit-to-lead"}
+    assert set(only["compound"]) == expected
+    found = data.read_compound_summary(shared_engine, data.SummaryFilter(search="qm-201"))
+    assert set(found["compound"]) == {n for n in demo_graded if n.lower().startswith("qm-201")}
+
+
+def test_best_potency_is_the_tightest_value_with_its_own_incubation(shared_engine):
+    from tracker.db import queries
+
+    pot = queries.potency(shared_engine)
+    summary = data.read_compound_summary(shared_engine).set_index("compound")
+    for name, rows in pot.groupby("compound"):
+        best = rows.sort_values(["value_M", "id"]).iloc[0]
+        assert summary.loc[name, "best_potency_M"] == pytest.approx(best["value_M"])
+        assert summary.loc[name, "best_incubation_s"] == pytest.approx(best["incubation_s"])

@@ -1,0 +1,208 @@
+"""The dashboard's entry: page routing and the shared sidebar.
+
+``app.py`` at the repository root only calls :func:`run`; ``streamlit run``
+can also be pointed at this file directly (an installed package has no
+``app.py``).  Pages are files in :mod:`tracker.ui.views`, registered with
+``st.navigation`` by absolute path, so they work from a source checkout and
+from an installed wheel alike.
+
+The sidebar holds what every page shares: the program filter, who is signed
+in (with the role from the ``users`` table) and which database is in use.
+:func:`context` hands the same values to the pages.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from pathlib import Path
+
+import streamlit as st
+from sqlalchemy import Engine
+
+VIEWS = Path(__file__).resolve().parent / "views"
+ALL_PROGRAMS = "All programs"
+PROGRAM_KEY = "krt_program"
+COMPOUND_KEY = "krt_compound"  # the compound opened on the evidence / gate / what-if pages
+CTX_KEY = "_krt_ctx"
+
+
+@dataclass(frozen=True)
+class PageSpec:
+    file: str
+    title: str
+    url_path: str
+    icon: str
+    group: str
+    default: bool = False
+
+
+PAGES: tuple[PageSpec, ...] = (
+    PageSpec("overview.py", "Risk overview", "overview", ":material/space_dashboard:", "Portfolio", default=True),
+    PageSpec("compound.py", "Compound evidence", "compound", ":material/biotech:", "Portfolio"),
+    PageSpec("kinetic_map.py", "Kinetic map", "kinetic-map", ":material/scatter_plot:", "Portfolio"),
+    PageSpec("queue.py", "Measure next", "measure-next", ":material/format_list_numbered:", "Portfolio"),
+    PageSpec("gate.py", "Stage gate", "stage-gate", ":material/how_to_reg:", "Decide"),
+    PageSpec("what_if.py", "What-if", "what-if", ":material/tune:", "Decide"),
+    PageSpec("review_pack.py", "Review pack", "review-pack", ":material/description:", "Decide"),
+    PageSpec("load.py", "Load data", "load-data", ":material/upload_file:", "Records"),
+    PageSpec("audit.py", "Audit trail", "audit-trail", ":material/fact_check:", "Records"),
+)
+
+
+def page(url_path: str):
+    """The ``st.Page`` of a view (same object identity rules as the navigation: by url path)."""
+    spec = next(p for p in PAGES if p.url_path == url_path)
+    return st.Page(VIEWS / spec.file, title=spec.title, url_path=spec.url_path, icon=spec.icon, default=spec.default)
+
+
+def open_compound(name: str) -> None:
+    """Make ``name`` the current compound and go to its evidence page."""
+    st.session_state[COMPOUND_KEY] = name
+    st.switch_page(page("compound"))
+
+
+@dataclass(frozen=True)
+class Context:
+    """What every page needs: the database, its version, the identity and the program filter."""
+
+    url: str
+    engine: Engine
+    version: tuple[int, int]
+    identity: object  # tracker.ui.identity.Identity | None
+    program: str | None  # None = all programs
+
+    @property
+    def role(self) -> str:
+        return self.identity.effective_role if self.identity else "viewer"
+
+
+def context() -> Context:
+    """The context built by the sidebar in this run (built here if a page runs on its own)."""
+    ctx = st.session_state.get(CTX_KEY)
+    if ctx is None:
+        ctx = _build_context()
+    return ctx
+
+
+def _build_context() -> Context:
+    from . import data, identity
+
+    url = data.current_url()
+    engine = data.get_engine(url)
+    ver = data.version(url)
+    ident = identity.resolve(engine)
+    program = st.session_state.get(PROGRAM_KEY)
+    program = None if program in (None, ALL_PROGRAMS) else program
+    ctx = Context(url=url, engine=engine, version=ver, identity=ident, program=program)
+    st.session_state[CTX_KEY] = ctx
+    return ctx
+
+
+@st.cache_data(ttl=15, show_spinner=False)
+def _schema_problem(url: str) -> str | None:
+    """Why the database cannot be used (empty, old schema, unreachable), or ``None``; re-checked every 15 s."""
+    from ..db import migrate
+    from ..db.session import DatabaseError
+    from .data import get_engine
+
+    engine = get_engine(url)
+    try:
+        rev, head = migrate.current(engine), migrate.head()
+    except DatabaseError as exc:
+        return exc.one_line()
+    except Exception as exc:  # unreachable server and the like: one line, no traceback
+        return f"cannot open the database: {' '.join(str(exc).split())[:300]}"
+    if rev is None:
+        return "the database is empty: run `krt db upgrade` (or `krt demo load` for the demo)"
+    if rev != head:
+        return f"the database schema is at {rev}, this version needs {head}: run `krt db upgrade`"
+    return None
+
+
+def _program_names(url: str) -> list[str]:
+    from . import data
+
+    progs = data.programs(url, data.version(url))
+    names = [ALL_PROGRAMS] + list(progs["name"])
+    if st.session_state.get(PROGRAM_KEY) not in names:
+        st.session_state[PROGRAM_KEY] = ALL_PROGRAMS
+    return names
+
+
+def _sidebar(ctx: Context, names: list[str]) -> None:
+    from ..db.session import mask_url
+    from ..errors import KrtError
+    from . import data, identity
+
+    engine, ctx_url, ver, ident = ctx.engine, ctx.url, ctx.version, ctx.identity
+    with st.sidebar:
+        st.selectbox("Program", names, key=PROGRAM_KEY, help="Filters every page to one program.")
+        st.divider()
+        if ident is None:
+            st.markdown("**Not signed in**")
+            st.button("Sign in", on_click=st.login, type="primary")
+        else:
+            role = ident.effective_role
+            if ident.mode == identity.LOCAL:
+                st.markdown(f"**{ident.display}** · {role}")
+                st.caption("LOCAL MODE: nobody signed in; identity is this computer's user "
+                           "(or $KRT_USER). Configure [auth] in secrets for sign-in.")
+            else:
+                st.markdown(f"**{ident.display}** · {role}")
+                st.caption(f"Signed in as {ident.name}")
+                st.button("Sign out", on_click=st.logout)
+            if not ident.registered and ident.n_users:
+                st.caption("Not in the users table: read-only. Ask a lead to add you (`krt user add`).")
+            elif ident.registered and not ident.active:
+                st.caption("Your user is deactivated: read-only.")
+            if ident.may_bootstrap:
+                st.info("No users are registered yet. The first user becomes the lead.")
+                if st.button(f"Register {ident.name} as lead", key="krt_bootstrap"):
+                    try:
+                        identity.bootstrap_first_lead(engine, ident)
+                    except KrtError as exc:  # e.g. someone else registered first: one line
+                        st.error(exc.one_line())
+                    else:
+                        data.clear_caches()
+                        st.rerun()
+        st.divider()
+        st.caption(f"Database: `{mask_url(ctx_url)}`")
+        st.caption(f"Audit events: {ver[1]:,}")
+
+
+def run() -> None:
+    """Build the sidebar and run the selected page."""
+    from ..errors import KrtError
+    from . import data
+
+    st.set_page_config(page_title="Kinetic-risk tracker", page_icon=":material/timelapse:", layout="wide")
+    st.session_state.pop(CTX_KEY, None)
+    url = data.current_url()
+    try:
+        data.get_engine(url)
+    except KrtError as exc:  # a URL the session layer refuses (wrong driver, unsupported database)
+        st.title("Kinetic-risk tracker")
+        st.error(exc.one_line())
+        st.stop()
+    problem = _schema_problem(url)
+    if problem:
+        st.title("Kinetic-risk tracker")
+        st.error(problem)
+        st.stop()
+    groups: dict[str, list] = {}
+    for spec in PAGES:
+        groups.setdefault(spec.group, []).append(page(spec.url_path))
+    nav = st.navigation(groups, position="sidebar")
+    names = _program_names(url)
+    ctx = _build_context()
+    _sidebar(ctx, names)
+    try:
+        nav.run()
+    except KrtError as exc:  # a user-facing error from a service: one line, no traceback
+        st.error(exc.one_line())
+
+
+if __name__ == "__main__":  # `streamlit run tracker/ui/main.py` (installed package, no app.py)
+    from tracker.ui.main import run as _run
+
+    _run()

@@ -1,0 +1,221 @@
+"""The review pack: one self-contained HTML file for a governance meeting.
+
+It holds, for a program or a list of compounds: the always-present safety
+caution, a grade summary, and per compound its grade, findings (message,
+decision prompt, caution), potency against the kinetic predictions and the
+charts.  Charts are rendered to static SVG by vl-convert (through Altair's
+``save``) and embedded as ``data:`` URIs; the file has no scripts, no
+stylesheets or fonts from elsewhere and no links out, so it opens offline and
+prints as it looks.  The pack records the database's audit-chain head (last
+event id and hash), which anchors it to the exact state it was built from.
+
+:func:`build_pack` needs no Streamlit; the review-pack page and the tests call it.
+"""
+
+from __future__ import annotations
+
+import base64
+import datetime as dt
+import html
+import io
+import math
+from collections.abc import Iterable
+from typing import Any
+
+import altair as alt
+import pandas as pd
+from sqlalchemy import Engine
+
+from ..units import fmt_conc, fmt_time
+from . import charts, data, evidence, theme
+from .widgets import rule_title
+
+MAX_CHART_COMPOUNDS = 60  # beyond this, the pack lists grades and findings without per-compound charts
+
+
+def chart_data_uri(chart: alt.TopLevelMixin) -> str:
+    """An Altair chart as a ``data:image/svg+xml;base64,...`` URI (rendered offline by vl-convert)."""
+    buf = io.StringIO()
+    chart.save(buf, format="svg")
+    return "data:image/svg+xml;base64," + base64.b64encode(buf.getvalue().encode("utf-8")).decode("ascii")
+
+
+def _img(chart: alt.TopLevelMixin, alt_text: str) -> str:
+    return f'<img class="chart" alt="{html.escape(alt_text)}" src="{chart_data_uri(chart)}">'
+
+
+def _badge(grade: object) -> str:
+    g = theme.grade_style(grade)
+    return f'<span class="badge" style="background:{g.colour}">{html.escape(g.badge)}</span>'
+
+
+def _e(v: Any) -> str:
+    if v is None or (isinstance(v, float) and not math.isfinite(v)):
+        return "–"
+    return html.escape(str(v))
+
+
+CSS = """
+body{font-family:Helvetica,Arial,sans-serif;color:#2B2F36;max-width:1100px;margin:24px auto;padding:0 16px;line-height:1.4}
+h1{font-size:24px;margin-bottom:4px} h2{font-size:19px;border-bottom:2px solid #E4E1DA;padding-bottom:4px;margin-top:32px}
+h3{font-size:16px;margin:18px 0 6px}
+.meta{color:#6B7079;font-size:13px}
+.caution{background:#FBF3E4;border-left:5px solid #C99A2E;padding:10px 14px;margin:16px 0}
+.badge{color:white;border-radius:4px;padding:1px 8px;font-weight:bold;white-space:nowrap;font-size:13px}
+table{border-collapse:collapse;width:100%;font-size:13px;margin:8px 0}
+th,td{border-bottom:1px solid #E4E1DA;padding:4px 6px;text-align:left;vertical-align:top}
+th{background:#F4F2EE}
+.finding{border:1px solid #E4E1DA;border-radius:6px;padding:8px 12px;margin:8px 0}
+.prompt{font-weight:bold} .fcaution{color:#7A4B0E;font-size:13px}
+.chart{max-width:100%;display:block;margin:8px 0}
+.compound{page-break-inside:avoid}
+"""
+
+
+def _summary_table(rows: pd.DataFrame) -> str:
+    head = "<tr><th>Compound</th><th>Program</th><th>Series</th><th>Stage</th><th>Grade</th><th>Top finding</th>" \
+           "<th>Residence time</th><th>Best potency</th></tr>"
+    body = []
+    for r in rows.itertuples(index=False):
+        top = f"{rule_title(r.top_rule)}" if isinstance(r.top_rule, str) else ""
+        pot = "–"
+        if isinstance(r.best_readout, str) and r.best_potency_M == r.best_potency_M:
+            pot = f"{r.best_readout} {fmt_conc(r.best_potency_M)} @ {fmt_time(r.best_incubation_s)}"
+        body.append(f"<tr><td>{_e(r.compound)}</td><td>{_e(r.program)}</td><td>{_e(r.series)}</td><td>{_e(r.stage)}</td>"
+                    f"<td>{_badge(r.grade)}</td><td>{_e(top)}</td>"
+                    f"<td>{_e(fmt_time(r.residence_time_s) if r.residence_time_s == r.residence_time_s else None)}</td>"
+                    f"<td>{_e(pot)}</td></tr>")
+    return f"<table>{head}{''.join(body)}</table>"
+
+
+def _findings_html(findings: list[dict[str, Any]]) -> str:
+    if not findings:
+        return '<p>No findings: nothing in the kinetic evidence flags this compound.</p>'
+    out = []
+    for f in sorted(findings, key=lambda f: theme.SEVERITY_ORDER.get(f.get("severity"), 9)):
+        parts = [f'<div class="finding">{_badge(f.get("severity"))} <b>{_e(rule_title(f.get("rule")))}</b>',
+                 f'<p>{_e(f.get("message"))}</p>']
+        if f.get("prompt"):
+            parts.append(f'<p class="prompt">Decision asked: {_e(f["prompt"])}</p>')
+        if f.get("caution"):
+            parts.append(f'<p class="fcaution">Caution: {_e(f["caution"])}</p>')
+        parts.append("</div>")
+        out.append("".join(parts))
+    return "".join(out)
+
+
+def _potency_html(table: pd.DataFrame) -> str:
+    if table.empty:
+        return "<p>No potency values on record.</p>"
+
+    def n(v):
+        return "–" if v is None or v != v else f"{v:.3g}"
+
+    rows = "".join(
+        f"<tr><td>{_e(r.assay)}</td><td>{_e(r.readout)}</td><td>{n(r.value_nM)}</td><td>{n(r.incubation_h)}</td>"
+        f"<td>{n(r.predicted_nM)}</td><td>{n(r.equilibrium_nM)}</td><td>{'–' if r.fold != r.fold else f'{r.fold:.2f}×'}</td></tr>"
+        for r in table.itertuples(index=False)
+    )
+    return ("<table><tr><th>Assay</th><th>Readout</th><th>Measured (nM)</th><th>Incubation (h)</th>"
+            "<th>Predicted apparent (nM)</th><th>Projected true (nM)</th><th>Fold shift</th></tr>" + rows + "</table>")
+
+
+def _brief_section(row: Any, graded: dict[str, Any]) -> str:
+    """A compound without its evidence tables and charts (large packs): identity, grade, findings."""
+    return (f'<div class="compound"><h3 id="{html.escape(row.compound)}">{_e(row.compound)} {_badge(graded.get("grade"))}</h3>'
+            f'<p class="meta">{_e(row.program)} · series {_e(row.series)} · stage {_e(row.stage)}</p>'
+            + _findings_html(graded.get("findings") or []) + "</div>")
+
+
+def _compound_section(engine: Engine, name: str, graded: dict[str, Any], with_charts: bool) -> str:
+    info = data.read_compound(engine, name)
+    comp, program = info["compound"], info["program"]
+    kin = evidence.best_kinetics(info["kinetics"], info["potency"])
+    parts = [f'<div class="compound"><h3 id="{html.escape(name)}">{_e(name)} {_badge(graded.get("grade"))}</h3>',
+             f'<p class="meta">{_e(comp["program"])} · series {_e(comp.get("series"))} · stage {_e(comp["stage"])} · '
+             f'kinetics: {_e(kin.source)}'
+             + (f" · residence time {_e(fmt_time(kin.rt_s))}" if kin.rt_s else "") + "</p>",
+             _findings_html(graded.get("findings") or [])]
+    table = evidence.potency_table(info["potency"], kin)
+    parts.append(_potency_html(table))
+    if with_charts:
+        if not info["potency"].empty or kin.koff:
+            parts.append(_img(evidence.affinity_chart(info["potency"], kin).properties(width=620),
+                              f"{name}: apparent affinity against incubation time"))
+        if kin.koff and kin.kon and not info["pk"].empty:
+            pk_in = evidence.PKInput.from_row(info["pk"].iloc[-1], program)
+            n_doses = 3 if pk_in.dosing_interval else 1
+            try:
+                chart = evidence.engagement_chart(kin, pk_in, program, n_doses=n_doses).properties(width=620)
+                parts.append(f'<p class="meta">Engagement under PK: {_e(evidence.pk_label(info["pk"].iloc[-1]))}, {n_doses} dose(s)</p>')
+                parts.append(_img(chart, f"{name}: target engagement against time"))
+            except Exception as exc:  # a PK row the simulation refuses: say so, keep the pack
+                parts.append(f'<p class="meta">Engagement not simulated: {_e(" ".join(str(exc).split()))}</p>')
+        for title, chart, summary in evidence.fit_charts(info["fits"]):
+            parts.append(f'<p class="meta">Fit: {_e(title)} — ' + "; ".join(f"{_e(k)} {_e(v)}" for k, v in summary.items()) + "</p>")
+            if chart is not None:
+                parts.append(_img(chart.properties(width=620), f"{name}: {title}"))
+    parts.append("</div>")
+    return "".join(parts)
+
+
+def build_pack(
+    engine: Engine,
+    *,
+    program: str | None = None,
+    compounds: Iterable[str] | None = None,
+    author: str = "",
+    graded: list[dict[str, Any]] | None = None,
+    with_charts: bool = True,
+) -> str:
+    """The pack as one HTML string (see the module docstring).
+
+    ``compounds`` narrows to those names (within ``program`` if given);
+    ``graded`` reuses an already computed grading (the service's list).
+    """
+    from ..db.audit import chain_head
+    from ..db.uow import UnitOfWork
+
+    names = None if compounds is None else list(compounds)
+    summary = data.read_compound_summary(engine, data.SummaryFilter(program=program, compounds=tuple(names or ())))
+    if graded is None:
+        graded = data.read_grades(engine, program)
+    rows = data.merge_portfolio(summary, data.grade_table(graded))
+    rows = rows.sort_values(["grade_rank", "stage_rank", "compound"], ascending=[True, False, True]).reset_index(drop=True)
+    by_name = {g["compound"]: g for g in graded}
+    with UnitOfWork(engine, write=False) as uow:
+        head_id, head_hash = chain_head(uow.session)
+    now = dt.datetime.now(dt.timezone.utc).strftime("%Y-%m-%d %H:%M UTC")
+    scope = program or ("selected compounds" if names else "all programs")
+    title = f"Kinetic-risk review pack: {scope}"
+    counts = rows["grade_key"].value_counts()
+    count_text = " · ".join(f"{theme.GRADES[k].badge}: {int(counts.get(k, 0))}" for k in ("high", "moderate", "low", "clear"))
+    parts = [
+        "<!DOCTYPE html><html lang='en'><head><meta charset='utf-8'>",
+        f"<title>{html.escape(title)}</title><style>{CSS}</style></head><body>",
+        f"<h1>{html.escape(title)}</h1>",
+        f"<p class='meta'>Built {now}{' by ' + html.escape(author) if author else ''} · {len(rows)} compound(s) · "
+        f"audit chain head: event {head_id}, hash {head_hash[:16]}…</p>",
+        "<div class='caution'><b>" + html.escape(theme.SAFETY_TITLE) + ".</b><ul>"
+        + "".join(f"<li>{html.escape(p)}</li>" for p in theme.SAFETY_POINTS) + "</ul></div>",
+        f"<h2>Summary</h2><p>{count_text}</p>",
+    ]
+    if with_charts and not rows.empty:
+        parts.append(_img(charts.grade_counts_chart(charts.grade_counts_frame(rows)), "grade counts by stage and program"))
+    parts.append(_summary_table(rows))
+    parts.append("<h2>Compounds</h2>")
+    charted = with_charts and len(rows) <= MAX_CHART_COMPOUNDS
+    if with_charts and not charted:
+        parts.append(f"<p class='meta'>{len(rows)} compounds: charts and potency tables are left out above "
+                     f"{MAX_CHART_COMPOUNDS}; build a pack of fewer compounds for them.</p>")
+    detailed = len(rows) <= MAX_CHART_COMPOUNDS  # beyond that: findings only, no per-compound queries or charts
+    for row in rows.itertuples(index=False):
+        g = by_name.get(row.compound, {})
+        parts.append(_compound_section(engine, row.compound, g, charted) if detailed else _brief_section(row, g))
+    parts.append("<p class='meta'>Apparent-affinity predictions assume one binding site without depletion; engagement assumes "
+                 "free drug and no target turnover. " + html.escape(" ".join(theme.SAFETY_POINTS)) + "</p>")
+    parts.append("</body></html>")
+    return "".join(parts)
+
+
+__all__ = ["build_pack", "chart_data_uri", "MAX_CHART_COMPOUNDS"]

@@ -1,0 +1,170 @@
+"""Compound evidence: findings, potency against predictions, fits, incubation and engagement charts."""
+
+from __future__ import annotations
+
+import pandas as pd
+import streamlit as st
+
+from tracker.errors import KrtError
+from tracker.ui import data, evidence, widgets
+from tracker.ui.main import COMPOUND_KEY, context, page
+
+POTENCY_COLUMNS = {
+    "assay": st.column_config.TextColumn("Assay"),
+    "readout": st.column_config.TextColumn("Readout", width="small"),
+    "value_nM": st.column_config.NumberColumn("Measured (nM)", format="%.3g"),
+    "incubation_h": st.column_config.NumberColumn("Incubation (h)", format="%.3g"),
+    "predicted_nM": st.column_config.NumberColumn("Predicted apparent (nM)", format="%.3g",
+                                                  help="What this assay should read after its incubation, given the measured kinetics"),
+    "equilibrium_nM": st.column_config.NumberColumn("Projected true (nM)", format="%.3g",
+                                                    help="The measured value corrected to equilibrium with the measured residence time"),
+    "fold": st.column_config.NumberColumn("Fold shift", format="%.2f×", help="Predicted apparent / true affinity at this incubation"),
+    "model": st.column_config.TextColumn("Model", width="small"),
+}
+
+
+def pick_compound(ctx, key: str = COMPOUND_KEY) -> str | None:
+    """A compound picker shared by the evidence, gate and what-if pages (remembers the choice)."""
+    names = data.compound_names(ctx.url, ctx.version, ctx.program)
+    if not names:
+        st.info("No compounds yet: load data on the Load data page (or run `krt demo load`).")
+        return None
+    linked = st.query_params.get("compound")
+    if linked in names and st.session_state.get("_krt_linked") != linked:  # a deep link (?compound=NAME) wins once
+        st.session_state["_krt_linked"] = linked
+        st.session_state[COMPOUND_KEY] = linked
+        st.session_state.pop(f"pick_{key}", None)
+    current = st.session_state.get(COMPOUND_KEY)
+    index = names.index(current) if current in names else 0
+    name = st.selectbox("Compound", names, index=index, key=f"pick_{key}")
+    st.session_state[COMPOUND_KEY] = name
+    return name
+
+
+def kinetics_frame(kin: pd.DataFrame) -> pd.DataFrame:
+    if kin.empty:
+        return kin
+    return pd.DataFrame({
+        "Method": kin["method"],
+        "kon (/M/s)": kin["kon_per_M_s"],
+        "koff (/s)": kin["koff_per_s"],
+        "Residence time": [widgets.dur(v) for v in kin["residence_time_s"]],
+        "KD": [widgets.conc(v) for v in kin["kd_from_rates_M"].fillna(kin["kd_M"])],
+        "koff 95% CI (/s)": [_ci(lo, hi) for lo, hi in zip(kin["koff_low_per_s"], kin["koff_high_per_s"])],
+        "Date": kin["measured_on"].dt.date if "measured_on" in kin else None,
+        "Source": kin["source"],
+    })
+
+
+def _ci(lo, hi) -> str:
+    if pd.isna(lo) and pd.isna(hi):
+        return "–"
+    return f"{lo:.3g} – {hi:.3g}"
+
+
+def render() -> None:
+    ctx = context()
+    st.title("Compound evidence")
+    name = pick_compound(ctx)
+    if name is None:
+        return
+    try:
+        info = data.compound(ctx.url, ctx.version, name)
+    except KrtError as exc:
+        st.error(widgets.one_line(exc))
+        return
+    graded = data.findings_of(data.grades(ctx.url, ctx.version, ctx.program), name) or {}
+    comp, program = info["compound"], info["program"]
+
+    head = st.columns([3, 2])
+    with head[0]:
+        st.subheader(name)
+        st.caption(f"{comp['program']} · series {comp.get('series') or '–'} · stage **{comp['stage']}** · "
+                   f"intended profile {program.get('intended_profile') or '–'}")
+    with head[1]:
+        widgets.badge(graded.get("grade"))
+        st.page_link(page("stage-gate"), label="Review a stage transition", icon=":material/how_to_reg:")
+        st.page_link(page("what-if"), label="Explore in what-if", icon=":material/tune:")
+
+    st.subheader("Findings")
+    widgets.findings_list(graded.get("findings") or [])
+
+    kin = evidence.best_kinetics(info["kinetics"], info["potency"])
+    st.subheader("Potency and what the kinetics predict")
+    if kin.koff:
+        st.caption(f"Predictions use {kin.source}: residence time {widgets.dur(kin.rt_s)}, KD {widgets.conc(kin.kd)}.")
+    else:
+        st.caption("No residence time measured: predictions need koff, so only the measured values are shown.")
+    table = evidence.potency_table(info["potency"], kin)
+    if table.empty:
+        st.info("No potency values on record.")
+    else:
+        st.dataframe(table[list(POTENCY_COLUMNS)], column_config=POTENCY_COLUMNS, hide_index=True, placeholder="–", width="stretch")
+
+    if not info["kinetics"].empty:
+        st.markdown("**Kinetic measurements**")
+        st.dataframe(kinetics_frame(info["kinetics"]), hide_index=True, placeholder="–", width="stretch",
+                     column_config={"kon (/M/s)": st.column_config.NumberColumn(format="%.3g"),
+                                    "koff (/s)": st.column_config.NumberColumn(format="%.3g")})
+
+    st.subheader("Apparent affinity against incubation time")
+    st.caption("The curve is what an assay would report after each incubation if the compound has the measured kinetics; "
+               "diamonds are this compound's own assays. Read potency only to the right of the 2 × RT line.")
+    if table.empty and not kin.koff:
+        st.info("Nothing to plot: no potency values and no kinetics.")
+    else:
+        st.altair_chart(evidence.affinity_chart(info["potency"], kin), width="stretch")
+
+    st.subheader("Stored fits")
+    fits = evidence.fit_charts(info["fits"])
+    if not fits:
+        st.info("No raw time courses have been fitted and saved for this compound (`krt fit ... --save`).")
+    for title, chart, summary in fits:
+        st.markdown(f"**{title}**")
+        if chart is None:
+            continue
+        cols = st.columns([3, 1])
+        cols[0].altair_chart(chart, width="stretch")
+        with cols[1]:
+            for k, v in summary.items():
+                st.markdown(f"**{k}:** {v}")
+
+    st.subheader("Target engagement under PK")
+    _engagement(info, kin, program)
+
+
+def _engagement(info: dict, kin: evidence.Kinetics, program: dict) -> None:
+    pk = info["pk"]
+    if pk.empty:
+        st.info("No PK profile on record: engagement under PK cannot be simulated.")
+        return
+    if not (kin.koff and kin.kon):
+        st.info("No residence time (koff) measured: engagement cannot be simulated with binding kinetics.")
+        return
+    labels = [evidence.pk_label(r) for _, r in pk.iterrows()]
+    choice = st.selectbox("PK profile", range(len(labels)), format_func=lambda i: labels[i], key="ce_pk")
+    pk_in = evidence.PKInput.from_row(pk.iloc[choice], program)
+    n_doses = 1
+    if pk_in.dosing_interval:
+        n_doses = st.slider(f"Doses (every {widgets.dur(pk_in.dosing_interval)})", 1, 10, 3, key="ce_doses")
+    try:
+        chart = evidence.engagement_chart(kin, pk_in, program, n_doses=n_doses)
+        thr = program.get("engagement_threshold") or 0.5
+        m = evidence.engagement_metrics(kin, pk_in, threshold=float(thr), n_doses=n_doses)
+    except KrtError as exc:
+        st.error(widgets.one_line(exc))
+        return
+    st.altair_chart(chart, width="stretch")
+    cols = st.columns(4)
+    cols[0].metric("Onset (threshold reached)", widgets.dur(m["onset_s"]),
+                   help=f"rapid-equilibrium curve: {widgets.dur(m['rapid_onset_s'])}")
+    cols[1].metric("Offset (last time above)", widgets.dur(m["offset_s"]),
+                   help=f"rapid-equilibrium curve: {widgets.dur(m['rapid_offset_s'])}")
+    cols[2].metric("Time above threshold", widgets.dur(m["duration_above_threshold_s"]))
+    cols[3].metric("Peak engagement", "–" if m["peak_occupancy"] is None else f"{100 * m['peak_occupancy']:.0f}%")
+    st.caption(f"Kinetics: {kin.source}. Free drug, one binding site, no target turnover. "
+               "Simulations are decision support, not dosing advice.")
+
+
+if __name__ == "__main__":
+    render()

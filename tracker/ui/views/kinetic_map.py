@@ -1,0 +1,86 @@
+"""Kinetic map: kon against koff for every compound with measured rates, coloured by grade."""
+
+from __future__ import annotations
+
+
+import numpy as np
+import pandas as pd
+import streamlit as st
+
+from tracker.ui import charts, data, theme, widgets
+from tracker.ui.main import context
+
+MAX_POINTS = 4000
+INCUBATIONS_S = (600.0, 1800.0, 3600.0, 2 * 3600.0, 4 * 3600.0, 16 * 3600.0, 24 * 3600.0)
+
+
+def map_points(kin: pd.DataFrame, graded: pd.DataFrame) -> pd.DataFrame:
+    """Display frame for :func:`tracker.ui.charts.kinetic_map_chart` (kon /M/s, koff /s, grade labels)."""
+    df = kin.merge(graded[["compound", "grade"]], on="compound", how="left")
+    return pd.DataFrame({
+        "compound": df["compound"],
+        "series": df["series"].fillna("no series"),
+        "stage": df["stage"],
+        "grade_label": df["grade"].map(theme.grade_label),
+        "kon": df["kon_per_M_s"].astype(float),
+        "koff": df["koff_per_s"].astype(float),
+        "rt_text": [widgets.dur(1.0 / k) for k in df["koff_per_s"]],
+        "kd_nM": (df["koff_per_s"] / df["kon_per_M_s"]) / 1e-9,
+    })
+
+
+def series_floor(points: pd.DataFrame, series: str, incubation_s: float) -> tuple[float | None, float | None, int]:
+    """``(floor KD in M, median kon, n)`` for a series: ln2/(kon t) with the series' median measured kon."""
+    from tracker.kinetics.assay import assay_floor
+
+    kons = points.loc[points["series"] == series, "kon"].to_numpy(float)
+    kons = kons[np.isfinite(kons) & (kons > 0)]
+    if kons.size == 0:
+        return None, None, 0
+    kon = float(np.median(kons))
+    return float(assay_floor(kon, incubation_s)), kon, int(kons.size)
+
+
+def render() -> None:
+    ctx = context()
+    st.title("Kinetic map")
+    st.caption("Each point is a compound's latest measured kon and koff. Diagonals join equal affinity (KD = koff/kon); "
+               "vertical dotted lines join equal residence time (RT = 1/koff). Left is slower dissociation.")
+    kin = data.kinetic_points(ctx.url, ctx.version, ctx.program)
+    if kin.empty:
+        st.info("No compound in this selection has both kon and koff measured.")
+        return
+    graded = data.grade_table(data.grades(ctx.url, ctx.version, ctx.program))
+    pts = map_points(kin, graded)
+    if len(pts) > MAX_POINTS:  # keep the chart below the charting library's row limit: the worst grades first
+        rank = pts["grade_label"].map({label: i for i, label in enumerate(theme.GRADE_LABELS)})
+        shown = pts.assign(_r=rank).sort_values(["_r", "compound"]).head(MAX_POINTS).drop(columns="_r")
+        st.caption(f"Showing the {MAX_POINTS:,} worst-graded of {len(pts):,} compounds with measured kinetics; "
+                   "pick a program in the sidebar to see all of its compounds.")
+        pts = shown
+    series = sorted(pts["series"].unique())
+    c1, c2 = st.columns(2)
+    chosen = c1.selectbox("Series for the assay floor", series, key="km_series")
+    inc = c2.select_slider("Incubation time", options=list(INCUBATIONS_S), value=3600.0, format_func=widgets.dur, key="km_inc")
+    floor, kon, n = series_floor(pts, chosen, inc)
+    label = ""
+    if floor is not None:
+        label = f"assay floor of {chosen} at {widgets.dur(inc)}: {widgets.conc(floor)}"
+        st.markdown(f"**Assay floor of {chosen} at {widgets.dur(inc)}: {widgets.conc(floor)}** (ln2 / (kon · t) with the series' median kon {kon:.3g} /M/s from {n} compound(s)). "
+                    "Compounds below the dashed line are tighter than this assay can report: they will bunch at the floor.")
+    st.altair_chart(charts.kinetic_map_chart(pts, floor_kd_M=floor, floor_label=label, incubation_s=inc), width="stretch")
+    below = pts[(pts["series"] == chosen) & (pts["kd_nM"] * 1e-9 < (floor or 0))]
+    if floor is not None and not below.empty:
+        st.warning(f"{len(below)} compound(s) of {chosen} have a true KD below the floor: "
+                   + ", ".join(below["compound"]) + ". Their potency at this incubation is underestimated.")
+    with st.expander("Points as a table"):
+        st.dataframe(pts.rename(columns={"kon": "kon (/M/s)", "koff": "koff (/s)", "rt_text": "Residence time",
+                                         "kd_nM": "KD (nM)", "grade_label": "Grade"}),
+                     hide_index=True, width="stretch",
+                     column_config={"kon (/M/s)": st.column_config.NumberColumn(format="%.3g"),
+                                    "koff (/s)": st.column_config.NumberColumn(format="%.3g"),
+                                    "KD (nM)": st.column_config.NumberColumn(format="%.3g")})
+
+
+if __name__ == "__main__":
+    render()

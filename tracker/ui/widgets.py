@@ -1,0 +1,97 @@
+"""Small rendering helpers the pages share: grade badges, findings, the safety box, number formats."""
+
+from __future__ import annotations
+
+import html
+import math
+from typing import Any
+
+import streamlit as st
+
+from ..units import fmt_conc, fmt_time
+from . import theme
+
+RULE_TITLES = {
+    "residence-time-unmeasured": "Residence time not measured",
+    "affinity-underestimate": "Affinity probably underestimated",
+    "duration-mismatch": "Engagement does not fit the intended profile",
+    "stage-skip": "Skips a stage",
+}
+
+
+def rule_title(rule: str | None) -> str:
+    if not rule:
+        return ""
+    return RULE_TITLES.get(rule, rule.replace("-", " ").capitalize())
+
+
+def badge_html(grade: object) -> str:
+    g = theme.grade_style(grade)
+    return (f'<span style="background:{g.colour};color:white;border-radius:4px;padding:1px 8px;'
+            f'font-weight:600;white-space:nowrap">{html.escape(g.badge)}</span>')
+
+
+def badge(grade: object) -> None:
+    st.markdown(badge_html(grade), unsafe_allow_html=True)
+
+
+def safety_box() -> None:
+    """The always-visible caution (gate, what-if, review pack pages)."""
+    st.warning(
+        f"**{theme.SAFETY_TITLE}.**\n\n" + "\n".join(f"- {p}" for p in theme.SAFETY_POINTS),
+        icon=":material/health_and_safety:",
+    )
+
+
+def finding_card(f: dict[str, Any]) -> None:
+    """One finding: severity, rule, the message with its numbers, the prompt and any caution."""
+    sev = f.get("severity")
+    with st.container(border=True):
+        st.markdown(f"{badge_html(sev)} &nbsp; **{html.escape(rule_title(f.get('rule')))}** "
+                    f"<span style='color:#8A8F98'>({html.escape(str(f.get('rule', '')))})</span>",
+                    unsafe_allow_html=True)
+        st.markdown(str(f.get("message", "")))
+        if f.get("prompt"):
+            st.markdown(f"**Decision asked:** {f['prompt']}")
+        if f.get("caution"):
+            st.caption(f":material/warning: Caution: {f['caution']}")
+
+
+def findings_list(findings: list[dict[str, Any]], empty: str = "No findings: nothing in the kinetic evidence flags this compound.") -> None:
+    if not findings:
+        st.success(empty, icon=":material/check_circle:")
+        return
+    order = theme.SEVERITY_ORDER
+    for f in sorted(findings, key=lambda f: order.get(f.get("severity"), 9)):
+        finding_card(f)
+
+
+def conc(v: Any) -> str:
+    """Molar value as readable text ('3.2 nM'); '–' when missing."""
+    f = _num(v)
+    return "–" if f is None else fmt_conc(f)
+
+
+def dur(v: Any) -> str:
+    f = _num(v)
+    return "–" if f is None else fmt_time(f)
+
+
+def fold(v: Any) -> str:
+    f = _num(v)
+    return "–" if f is None else f"{f:.3g}×"
+
+
+def _num(v: Any) -> float | None:
+    try:
+        f = float(v)
+    except (TypeError, ValueError):
+        return None
+    return f if math.isfinite(f) else None
+
+
+def one_line(exc: BaseException) -> str:
+    return " ".join(str(exc).split())
+
+
+__all__ = ["badge", "badge_html", "safety_box", "finding_card", "findings_list", "rule_title", "conc", "dur", "fold", "one_line"]
