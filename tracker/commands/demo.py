@@ -65,12 +65,18 @@ def run_open(args) -> int:
     engine = open_engine(url)
     load_demo(engine)
     engine.dispose()
+    # In local mode the dashboard acts as $KRT_USER; the demo signs you in as its lead unless you say otherwise.
     env = dict(os.environ, KRT_DATABASE_URL=url)
+    env.setdefault("KRT_USER", "demo-lead")
     cmd = [sys.executable, "-m", "streamlit", "run", str(app_path()), "--server.port", str(args.port),
            "--browser.gatherUsageStats", "false"]
+    from ..ui.theme import APP_THEME
+
+    for key, value in APP_THEME.items():
+        cmd += [f"--theme.{key}", value]
     if args.no_browser:
         cmd += ["--server.headless", "true"]
-    print(f"demo database: {path}\nopening the dashboard at http://localhost:{args.port}  (Ctrl+C to stop)")
+    print(f"demo database: {path}  (acting as {env['KRT_USER']}; set KRT_USER to change)\nopening the dashboard at http://localhost:{args.port}  (Ctrl+C to stop)")
     try:
         return subprocess.call(cmd, env=env)
     except FileNotFoundError as exc:  # pragma: no cover

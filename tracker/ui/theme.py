@@ -117,3 +117,12 @@ __all__ = [
     "SAFETY_POINTS",
     "SAFETY_TITLE",
 ]
+
+#: The app-wide Streamlit theme; ``.streamlit/config.toml`` holds the same values for
+#: ``streamlit run app.py`` from a checkout, and ``krt demo open`` passes them as flags.
+APP_THEME = {
+    "primaryColor": "#3C6E71",
+    "backgroundColor": "#FFFFFF",
+    "secondaryBackgroundColor": "#F4F2EE",
+    "textColor": "#2B2F36",
+}
