@@ -1,7 +1,9 @@
-"""The migrations ship inside the wheel: `krt db upgrade` works from a non-editable install."""
+"""The migrations and the demo ship inside the wheel: `krt db upgrade`, `krt demo load` and
+`krt grade` work from a non-editable install (the README's quick start installs one)."""
 
 from __future__ import annotations
 
+import json
 import os
 import shutil
 import subprocess
@@ -38,6 +40,7 @@ def test_krt_db_upgrade_works_from_an_installed_wheel(tmp_path):
     ignore = shutil.ignore_patterns("__pycache__", "*.pyc")
     shutil.copytree(REPO / "tracker", src / "tracker", ignore=ignore)
     shutil.copytree(REPO / "migrations", src / "migrations", ignore=ignore)
+    shutil.copytree(REPO / "seed_demo", src / "seed_demo", ignore=ignore)
     wheels = tmp_path / "wheels"
     cmd = [sys.executable, "-m", "pip", "wheel", "--no-deps", "-q", str(src), "-w", str(wheels)]
     build = subprocess.run(cmd, capture_output=True, text=True, timeout=600)
@@ -75,3 +78,13 @@ def test_krt_db_upgrade_works_from_an_installed_wheel(tmp_path):
     assert f"-> {head()}" in run.stdout
     current = subprocess.run([str(venv / "bin" / "krt"), "db", "current"], capture_output=True, text=True, cwd=tmp_path, env=env, timeout=120)
     assert current.stdout.startswith(f"{head()} (up to date)"), current.stdout + current.stderr
+
+    demo = subprocess.run([str(venv / "bin" / "krt"), "demo", "load"], capture_output=True, text=True, cwd=tmp_path, env=env, timeout=600)
+    assert demo.returncode == 0, demo.stderr
+    graded = subprocess.run([str(venv / "bin" / "krt"), "grade", "--json"], capture_output=True, text=True, cwd=tmp_path, env=env, timeout=600)
+    assert graded.returncode == 0, graded.stderr
+    rows = json.loads(graded.stdout)
+    assert len(rows) >= 30 and len({r["program"] for r in rows}) >= 2
+    app = subprocess.run([str(vpy), "-c", "from tracker.commands.demo import app_path; print(app_path())"],
+                         capture_output=True, text=True, cwd=tmp_path, env=env, timeout=120)
+    assert app.returncode == 0 and app.stdout.strip().startswith(str(venv)), app.stdout + app.stderr
