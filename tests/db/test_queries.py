@@ -93,8 +93,10 @@ def test_a_time_course_comes_back_as_its_columns_with_meta(loaded):
 
 def test_audit_events_can_be_filtered(loaded):
     all_events = queries.audit_events(loaded)
-    compounds = queries.audit_events(loaded, entity_type="compound")
-    assert len(compounds) == 4 and set(compounds["action"]) == {"create"}
+    programs = queries.audit_events(loaded, entity_type="program")
+    assert len(programs) == 2 and set(programs["action"]) == {"create"}
+    compounds = queries.audit_events(loaded, entity_type="compounds")  # one import summary for the 4 compounds
+    assert len(compounds) == 1 and set(compounds["action"]) == {"import"}
     assert len(queries.audit_events(loaded, actor="nobody")) == 0
     assert len(queries.audit_events(loaded, limit=2, newest_first=True)) == 2
     assert queries.audit_events(loaded, limit=1, newest_first=True)["id"].iloc[0] == all_events["id"].max()

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import json
 from pathlib import Path
 
 import pytest
@@ -9,9 +10,10 @@ from openpyxl import Workbook
 
 from tracker.cli import main
 from tracker.db import queries
-from tracker.db.audit import verify_chain
+from tracker.db.audit import id_ranges, rows_digest, verify_chain
 from tracker.db.uow import UnitOfWork
 from tracker.errors import ImportErrors, InputError, PermissionDenied
+from tracker.services.auditlog import verify
 from tracker.services.importing import import_path
 
 POT_HEAD = "compound,assay,readout,value,incubation,format\n"
@@ -180,9 +182,55 @@ def test_new_compounds_get_a_stage_history_row_and_the_import_is_audited(loaded)
     assert sorted(hist["compound"]) == ["AUR-001", "AUR-002", "AUR-003", "BOR-001"]
     assert hist["from_stage"].isna().all() and set(hist["by_user"]) == {"ana"}
     events = queries.audit_events(loaded, actor="ana")
-    assert set(events["entity_type"]) >= {"program", "compound", "potency", "kinetic_measurements", "pk_profiles"}
+    assert set(events["entity_type"]) >= {"program", "compounds", "potency", "kinetic_measurements", "pk_profiles"}
     with UnitOfWork(loaded, write=False) as uow:
         assert verify_chain(uow.session)[0]
+
+
+def _summary_of(engine, table: str) -> dict:
+    ev = queries.audit_events(engine, action="import", entity_type=table)
+    assert len(ev) == 1, ev
+    return json.loads(ev["after_json"].iloc[0])
+
+
+def test_an_import_is_audited_as_one_summary_per_table_naming_every_row_written_by_id_and_digest(loaded):
+    compounds = queries.compounds(loaded).sort_values("id")
+    after = _summary_of(loaded, "compounds")
+    assert after["inserted"] == 4 and after["stages"] == compounds["stage"].value_counts().to_dict()
+    assert id_ranges(compounds["id"]) == after["id_ranges"]
+    assert rows_digest(f"{i}\t{n}" for i, n in zip(compounds["id"], compounds["name"])) == after["rows_sha256"]
+    # one summary, not one event per compound: the import is one write
+    assert queries.audit_events(loaded, action="create", entity_type="compound").empty
+    for table, view in (("potency", queries.potency), ("kinetic_measurements", queries.kinetics), ("pk_profiles", queries.pk)):
+        rows = view(loaded).sort_values("id")
+        after = _summary_of(loaded, table)
+        assert after["inserted"] == len(rows) and id_ranges(rows["id"]) == after["id_ranges"], table
+        lines = (f"{i}\t{c}\t{h}" for i, c, h in zip(rows["id"], rows["compound_id"], rows["content_hash"]))
+        assert rows_digest(lines) == after["rows_sha256"], table
+    assert verify(loaded)["ok"]
+
+
+def test_a_compound_renamed_outside_the_application_no_longer_matches_its_import_event(loaded):
+    from sqlalchemy import text
+
+    assert "4 import(s) match their rows" in verify(loaded)["message"]
+    with loaded.begin() as conn:
+        conn.execute(text("UPDATE compounds SET name = 'AUR-001b' WHERE name = 'AUR-001'"))
+    result = verify(loaded)
+    event_id = int(queries.audit_events(loaded, action="import", entity_type="compounds")["id"].iloc[0])
+    assert not result["ok"] and result["first_broken_id"] == event_id
+    assert "compounds rows it imported no longer match" in result["message"]
+
+
+def test_a_measurement_row_deleted_outside_the_application_is_reported_by_its_import_event(loaded):
+    from sqlalchemy import text
+
+    with loaded.begin() as conn:
+        victim = conn.execute(text("SELECT max(id) FROM potency")).scalar_one()
+        conn.execute(text("DELETE FROM potency WHERE id = :i"), {"i": victim})
+    result = verify(loaded)
+    event_id = int(queries.audit_events(loaded, action="import", entity_type="potency")["id"].iloc[0])
+    assert not result["ok"] and result["first_broken_id"] == event_id and "present" in result["message"]
 
 
 def test_reimporting_the_same_rows_adds_nothing(loaded, sample_dir, db_snapshot):

@@ -94,13 +94,23 @@ def test_gate_approved_with_a_waiver_and_json(cli):
     assert json.loads(out)[0]["stage"] == "candidate"
 
 
-def test_audit_verify_passes_on_an_intact_log_and_show_filters_by_compound(cli):
+def test_audit_verify_passes_on_an_intact_log_and_show_filters_by_compound(cli, kestrel):
+    from tracker.db import queries
+
     cli("gate", "K-HIT-1", "--to", "hit-to-lead", "--by", "lena", "--reason", "clean")
+    cli("gate", "K-ADV-2", "--to", "candidate", "--by", "lena", "--reason", "clean")  # another compound's events
     code, out, err = cli("audit", "verify")
-    assert code == 0 and "audit chain intact" in out and "1 decision(s) match" in out
+    assert code == 0 and "audit chain intact" in out and "2 decision(s) match" in out and "import(s) match their rows" in out
     code, out, _ = cli("audit", "show", "--compound", "K-HIT-1", "--json")
-    actions = [e["action"] for e in json.loads(out)]
-    assert actions == ["create", "gate-approved", "stage-change"]
+    events = json.loads(out)
+    assert [e["action"] for e in events if e["action"] != "import"] == ["gate-approved", "stage-change"]
+    # the import that created it: its id lies in the summary's id ranges (one event per table, not per compound)
+    kid = int(queries.compounds(kestrel).set_index("name").loc["K-HIT-1", "id"])
+    created = [e for e in events if e["action"] == "import" and e["entity_type"] == "compounds"]
+    assert len(created) == 1 and any(lo <= kid <= hi for lo, hi in created[0]["after"]["id_ranges"])
+    code, out, _ = cli("audit", "show", "--json")
+    gates = [e for e in json.loads(out) if e["action"] in ("gate-approved", "stage-change")]
+    assert len(gates) == 4 and sum(e["id"] in {x["id"] for x in events} for e in gates) == 2  # K-ADV-2's are left out
     code, out, _ = cli("audit", "show", "--limit", "2")
     assert code == 0 and len(out.strip().splitlines()) == 2 and "stage-change" in out
 

@@ -163,8 +163,8 @@ def test_a_valid_upload_is_previewed_then_committed_in_one_step(app, ui, demo_en
     assert not at.exception
     assert any("Imported: 2 row(s) written" in s.value for s in at.success)
     assert {"HF-9001", "HF-9002"} <= set(queries.compounds(demo_engine)["name"])
-    created = queries.audit_events(demo_engine, actor="demo-scientist", action="create", entity_type="compound")
-    assert len(created) >= 2
+    created = queries.audit_events(demo_engine, actor="demo-scientist", action="import", entity_type="compounds")
+    assert len(created) == 1 and json.loads(created["after_json"].iloc[0])["inserted"] == 2
 
 
 def test_a_workbook_upload_names_sheet_line_and_column_of_each_error(app, ui, demo_engine):

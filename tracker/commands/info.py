@@ -5,7 +5,7 @@ from __future__ import annotations
 import argparse
 import json
 
-from ..db import migrate, queries
+from ..db import migrate
 from ..db.session import database_errors, mask_url, open_engine
 
 
@@ -16,6 +16,8 @@ def register(sub: argparse._SubParsersAction) -> None:
 
 
 def gather_info(engine) -> dict:
+    from ..db import queries  # pandas: loaded when the command runs, not when the parser is built
+
     rev, head = migrate.current(engine), migrate.head()
     info = {
         "database": mask_url(str(engine.url.render_as_string(hide_password=False))),

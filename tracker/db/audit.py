@@ -17,6 +17,12 @@ sequence has no gaps and a deleted event is visible as a missing id.
 
 What the chain cannot show on its own: events cut off the *end* of the table.
 Keep :func:`chain_head` somewhere else (a report, a backup manifest) to anchor it.
+
+Bulk writes (an import of 10,000 compounds) append one summary event per
+table rather than one per row: its ``after`` names the rows by id
+(:func:`id_ranges`) and fixes their identity with a SHA-256 digest
+(:func:`rows_digest`) over one line per row, so a row added, removed or
+renamed outside the application no longer matches the hashed event.
 """
 
 from __future__ import annotations
@@ -135,6 +141,31 @@ def append_events(session: Session, events: list[dict[str, Any]], chunk: int = 5
     return stored
 
 
+def id_ranges(ids) -> list[list[int]]:
+    """Sorted ids as inclusive ``[first, last]`` runs: ``[3, 4, 5, 9]`` -> ``[[3, 5], [9, 9]]``."""
+    out: list[list[int]] = []
+    for i in sorted(int(x) for x in ids):
+        if out and i == out[-1][1] + 1:
+            out[-1][1] = i
+        elif not out or i != out[-1][1]:
+            out.append([i, i])
+    return out
+
+
+def in_ranges(value: int, ranges) -> bool:
+    """True when ``value`` lies in one of the ``[first, last]`` runs of :func:`id_ranges`."""
+    return any(lo <= value <= hi for lo, hi in ranges or ())
+
+
+def rows_digest(lines) -> str:
+    """SHA-256 hex over the given per-row lines, sorted, joined by newlines (UTF-8).
+
+    Imports use ``"<id>\\t<name>"`` for compounds and
+    ``"<id>\\t<compound_id>\\t<content_hash>"`` for measurements.
+    """
+    return hashlib.sha256("\n".join(sorted(lines)).encode("utf-8")).hexdigest()
+
+
 def chain_head(session: Session) -> tuple[int, str]:
     """``(last id, last hash)``, or ``(0, GENESIS_HASH)`` for an empty chain."""
     last = session.execute(select(AuditEvent.id, AuditEvent.hash).order_by(AuditEvent.id.desc()).limit(1)).first()
@@ -172,4 +203,4 @@ def verify_chain(session: Session, batch: int = 5000) -> tuple[bool, int | None,
     return True, None, f"audit chain intact: {n} event(s), head {prev_hash[:12]}"
 
 
-__all__ = ["append_event", "append_events", "verify_chain", "chain_head", "canonical_json", "event_hash", "utc_stamp", "GENESIS_HASH", "ADVISORY_LOCK_KEY"]
+__all__ = ["append_event", "append_events", "verify_chain", "chain_head", "id_ranges", "in_ranges", "rows_digest", "canonical_json", "event_hash", "utc_stamp", "GENESIS_HASH", "ADVISORY_LOCK_KEY"]

@@ -17,15 +17,14 @@ from collections.abc import Iterator
 from importlib import resources
 from pathlib import Path
 
-from alembic import command
-from alembic.autogenerate import compare_metadata
-from alembic.config import Config
-from alembic.migration import MigrationContext
-from alembic.script import ScriptDirectory
+from typing import TYPE_CHECKING
+
 from sqlalchemy import Connection, Engine
 
-from .models import Base
 from .session import WRITE_OPTION, DatabaseError
+
+if TYPE_CHECKING:  # alembic is imported where it is used: loading it costs ~0.35 s, which commands
+    from alembic.config import Config  # that never touch the schema (krt fit, simulate, --help) need not pay
 
 
 def script_location() -> str:
@@ -45,6 +44,8 @@ def script_location() -> str:
 
 
 def alembic_config(connection: Connection | None = None) -> Config:
+    from alembic.config import Config
+
     cfg = Config(stdout=io.StringIO())
     cfg.set_main_option("script_location", script_location())
     if connection is not None:
@@ -74,6 +75,8 @@ def migration_connection(engine: Engine) -> Iterator[Connection]:
 
 def upgrade(engine: Engine, rev: str = "head") -> str | None:
     """Upgrade the schema to ``rev``; returns the new revision."""
+    from alembic import command
+
     with migration_connection(engine) as conn:
         command.upgrade(alembic_config(conn), rev)
     return current(engine)
@@ -81,6 +84,8 @@ def upgrade(engine: Engine, rev: str = "head") -> str | None:
 
 def downgrade(engine: Engine, rev: str) -> str | None:
     """Downgrade the schema to ``rev`` (``"base"`` drops every table); returns the new revision."""
+    from alembic import command
+
     with migration_connection(engine) as conn:
         command.downgrade(alembic_config(conn), rev)
     return current(engine)
@@ -88,12 +93,16 @@ def downgrade(engine: Engine, rev: str) -> str | None:
 
 def current(engine: Engine) -> str | None:
     """The database's schema revision, or ``None`` for an empty database."""
+    from alembic.migration import MigrationContext
+
     with engine.connect() as conn:
         return MigrationContext.configure(conn).get_current_revision()
 
 
 def head() -> str:
     """The newest revision the scripts know."""
+    from alembic.script import ScriptDirectory
+
     return ScriptDirectory.from_config(alembic_config()).get_current_head()
 
 
@@ -111,6 +120,11 @@ def require_current(engine: Engine) -> None:
 
 def check_models_match(engine: Engine) -> list:
     """Differences between the ORM models and the migrated database (empty when they agree)."""
+    from alembic.autogenerate import compare_metadata
+    from alembic.migration import MigrationContext
+
+    from .models import Base
+
     with engine.connect() as conn:
         ctx = MigrationContext.configure(conn, opts={"compare_type": True, "render_as_batch": True})
         diffs = compare_metadata(ctx, Base.metadata)

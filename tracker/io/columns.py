@@ -1,9 +1,11 @@
-"""Column-wise parsing of quantity text: one regex pass per column, one unit lookup per distinct unit.
+"""Column-wise parsing of quantity text: one parse per distinct cell text, one unit lookup per distinct unit.
 
 :func:`parse_quantity_column` gives the same answers as
-:func:`tracker.units.parse_quantity` cell by cell (a test checks this), but
-converts a whole column at once, so 50,000 cells cost one ``str.extract`` and
-a handful of :func:`tracker.units.unit_factor` calls.
+:func:`tracker.units.parse_quantity` cell by cell (a test checks this): it
+uses the same number pattern and ``float``, but factorises the column first,
+so 50,000 cells cost one regex match per distinct text (``"30 min"`` is
+parsed once however often it occurs), a handful of
+:func:`tracker.units.unit_factor` calls and numpy arithmetic for the ranges.
 """
 
 from __future__ import annotations
@@ -14,9 +16,8 @@ import numpy as np
 import pandas as pd
 
 from ..errors import UnitError
+from ..units import _NUMBER as _NUMBER_RE  # the scalar parser's own pattern
 from ..units import KON_MAX, KON_WARN, unit_factor
-
-_NUMBER = r"^\s*([+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?)\s*(.*?)\s*$"
 
 
 @dataclass
@@ -47,15 +48,26 @@ def parse_quantity_column(
     n = len(texts)
     si = np.full(n, np.nan)
     out = ColumnResult(si=si)
-    present = texts.notna().to_numpy()
+    cells = texts.to_numpy(dtype=object)
+    present = ~pd.isna(cells)
     if not present.any():
         return out
     idx = np.flatnonzero(present)
-    sub = texts.iloc[idx].astype(str)
-    parts = sub.str.extract(_NUMBER)
-    numbers = parts[0]
-    units = parts[1].fillna("")
-    bad_number = numbers.isna().to_numpy()
+    # every distinct text is parsed once (a column of 50,000 cells holds a few thousand distinct values at most)
+    codes, uniques = pd.factorize(cells[idx])
+    u_number: list[float] = []
+    u_unit: list[str] = []
+    u_bad = np.zeros(len(uniques), dtype=bool)
+    for j, text in enumerate(uniques.tolist()):
+        m = _NUMBER_RE.match(str(text))
+        if m is None:
+            u_bad[j] = True
+            u_number.append(np.nan)
+            u_unit.append("")
+        else:
+            u_number.append(float(m.group(1)))  # the regex admits only float literals (as split_number)
+            u_unit.append(m.group(2) or "")
+    bad_number = u_bad[codes]
     for pos in idx[bad_number]:
         raw = str(texts.iloc[pos]).strip()
         word = raw.split()[0].lower() if raw.split() else raw
@@ -64,17 +76,25 @@ def parse_quantity_column(
         else:
             out.errors.append((int(pos), f"not a number: {raw!r} (expected e.g. '{_EXAMPLE[kind]}')"))
     ok = ~bad_number
-    values = pd.to_numeric(numbers[ok], errors="coerce").to_numpy(dtype=float)
     ok_idx = idx[ok]
-    ok_units = units[ok].to_numpy()
-    factors = np.full(len(ok_idx), np.nan)
-    for unit in pd.unique(ok_units):
-        sel = ok_units == unit
+    ok_codes = codes[ok]
+    values = np.asarray(u_number, dtype=float)[ok_codes]
+    # one unit lookup per distinct unit text
+    u_factor = np.full(len(uniques), np.nan)
+    u_unit_arr = np.asarray(u_unit, dtype=object)
+    unit_errors: dict[str, str] = {}
+    for unit in dict.fromkeys(u for u, b in zip(u_unit, u_bad) if not b):
         try:
-            factors[sel] = unit_factor(unit, kind)
+            f = unit_factor(unit, kind)
         except UnitError as exc:
-            msg = str(exc).replace(f" in {unit!r}", "")
-            for pos in ok_idx[sel]:
+            unit_errors[unit] = str(exc).replace(f" in {unit!r}", "")
+            continue
+        u_factor[u_unit_arr == unit] = f
+    factors = u_factor[ok_codes]
+    if unit_errors:
+        row_units = u_unit_arr[ok_codes]
+        for unit, msg in unit_errors.items():
+            for pos in ok_idx[row_units == unit]:
                 out.errors.append((int(pos), f"{msg} (cell {str(texts.iloc[pos]).strip()!r})"))
     with np.errstate(over="ignore", invalid="ignore"):
         vals = values * factors

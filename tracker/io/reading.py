@@ -88,46 +88,76 @@ def read_csv(path: Path, table: str, label: str | None = None) -> RawTable:
         raw.errors.append(raw.error(1, None, f"file is empty; expected a header line: {','.join(SPECS[table].names)}"))
         return raw
     reader = csv.reader(io.StringIO(text, newline=""))
-    header: list[str] | None = None
-    rows: list[list[str | None]] = []
-    lines: list[int] = []
-    last = 0
+    records: list[list[str]] = []
+    ends: list[int] = []
+    malformed: InputError | None = None
     try:
         for record in reader:
-            start, last = last + 1, reader.line_num
-            if not record or all(not c.strip() for c in record):
-                continue
-            if header is None:
-                header = [c.strip().lower() for c in record]
-                raw.header_line = start
-                continue
-            if len(record) > len(header):
-                extra = [c for c in record[len(header) :] if c.strip()]
-                if extra:
-                    raw.errors.append(raw.error(start, None, f"line has {len(record)} fields but the header has {len(header)}"))
-                    continue
-                record = record[: len(header)]
-            cells = [c.strip() or None for c in record] + [None] * (len(header) - len(record))
-            rows.append(cells)
-            lines.append(start)
+            records.append(record)
+            ends.append(reader.line_num)
     except csv.Error as exc:
-        raw.errors.append(raw.error(reader.line_num, None, f"malformed CSV: {exc}"))
+        malformed = raw.error(reader.line_num, None, f"malformed CSV: {exc}")
+    # a record starts on the line after the previous one ended (a quoted cell may span lines)
+    starts = [1] + [e + 1 for e in ends[:-1]]
+    header: list[str] | None = None
+    first = 0
+    for first, record in enumerate(records):
+        if record and any(c.strip() for c in record):
+            header = [c.strip().lower() for c in record]
+            raw.header_line = starts[first]
+            break
+    if header is None:
+        if malformed is not None:
+            raw.errors.append(malformed)
+        else:
+            _finish(raw, None, [], [])
+        return raw
+    body, body_starts = records[first + 1 :], starts[first + 1 :]
+    width = len(header)
+    if malformed is None and all(len(r) == width for r in body):
+        # the usual file: every line as wide as the header; strip and blank cells column by column
+        columns = [[c.strip() or None for c in col] for col in zip(*body)] if body else [[] for _ in range(width)]
+        blank = [all(c is None for c in cells) for cells in zip(*columns)] if body else []
+        if any(blank):
+            keep = [i for i, b in enumerate(blank) if not b]
+            columns = [[col[i] for i in keep] for col in columns]
+            body_starts = [body_starts[i] for i in keep]
+        _finish(raw, header, None, body_starts, columns=columns)
+        return raw
+    rows: list[list[str | None]] = []
+    lines: list[int] = []
+    for record, start in zip(body, body_starts):
+        if not record or all(not c.strip() for c in record):
+            continue
+        if len(record) > width:
+            extra = [c for c in record[width:] if c.strip()]
+            if extra:
+                raw.errors.append(raw.error(start, None, f"line has {len(record)} fields but the header has {width}"))
+                continue
+            record = record[:width]
+        rows.append([c.strip() or None for c in record] + [None] * (width - len(record)))
+        lines.append(start)
+    if malformed is not None:  # the lines before it are checked (one run lists every problem), nothing is kept
+        raw.errors.append(malformed)
         return raw
     _finish(raw, header, rows, lines)
     return raw
 
 
-def _finish(raw: RawTable, header: list[str] | None, rows: list, lines: list[int]) -> None:
+def _finish(raw: RawTable, header: list[str] | None, rows: list | None, lines: list[int], *, columns: list[list] | None = None) -> None:
+    """Check the header and build ``raw.cells`` from ``rows`` (lists of cells) or ``columns`` (lists of values)."""
     if header is None:
         raw.errors.append(raw.error(1, None, "no header line"))
         return
     if len(header) == 1 and ";" in header[0]:
         raw.errors.append(raw.error(raw.header_line, None, "the file uses ';' between fields; save it comma-separated"))
         return
+    if columns is None:
+        columns = [list(col) for col in zip(*rows)] if rows else [[] for _ in header]
     seen: set[str] = set()
     for i, name in enumerate(header):
         if not name:
-            if any(r[i] is not None for r in rows):
+            if any(v is not None for v in columns[i]):
                 raw.errors.append(raw.error(raw.header_line, f"field {i + 1}", "column without a name has values"))
             continue
         if name in seen:
@@ -137,7 +167,7 @@ def _finish(raw: RawTable, header: list[str] | None, rows: list, lines: list[int
     names = [header[i] for i in keep]
     if len(set(names)) != len(names):
         return
-    raw.cells = pd.DataFrame([[r[i] for i in keep] for r in rows], columns=names, dtype=object)
+    raw.cells = pd.DataFrame({name: pd.Series(columns[i], dtype=object) for name, i in zip(names, keep)}, columns=names)
     raw.lines = lines
 
 

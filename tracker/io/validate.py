@@ -126,26 +126,39 @@ def _validate_rows(df: pd.DataFrame, spec: TableSpec) -> tuple[pd.DataFrame, lis
 
     for col in spec.columns:
         series = df[col.name]
-        nul = series.map(lambda v: isinstance(v, str) and "\x00" in v).to_numpy(dtype=bool)
-        flag(np.flatnonzero(nul), col.name, "NUL character (byte 0x00) in the cell; remove it")
+        cells = series.to_numpy(dtype=object)
+        missing = pd.isna(cells)
+        texts = cells[~missing].tolist()
+        try:
+            joined = "".join(texts)  # every cell text: one scan for NUL, lengths only if one is too long
+        except TypeError:  # a cell that is not text (not from the readers): check cell by cell
+            joined = None
+        if joined is None or "\x00" in joined:
+            nul = series.map(lambda v: isinstance(v, str) and "\x00" in v).to_numpy(dtype=bool)
+            flag(np.flatnonzero(nul), col.name, "NUL character (byte 0x00) in the cell; remove it")
         if col.required:
-            flag(np.flatnonzero(series.isna().to_numpy()), col.name, "missing value (required)")
+            flag(np.flatnonzero(missing), col.name, "missing value (required)")
         if col.kind in ("text", "ref"):
-            lengths = series.map(lambda v: len(v) if isinstance(v, str) else 0).to_numpy()
-            flag(np.flatnonzero(lengths > col.max_len), col.name, f"longer than {col.max_len} characters")
+            if joined is None or (len(joined) > col.max_len and max(map(len, texts)) > col.max_len):
+                lengths = series.map(lambda v: len(v) if isinstance(v, str) else 0).to_numpy()
+                flag(np.flatnonzero(lengths > col.max_len), col.name, f"longer than {col.max_len} characters")
         elif col.kind == "enum":
-            values = series.dropna().unique()
-            mapping = {v: canonical(v, col.choices) for v in values}
-            unknown = series.map(lambda v, m=mapping: v is not None and m.get(v) is None).to_numpy(dtype=bool)
+            # one canonical() per distinct text, mapped back by code (-1 = empty cell)
+            codes, uniques = pd.factorize(cells)
+            mapped = [canonical(v, col.choices) for v in uniques.tolist()]
+            unknown = (codes >= 0) & np.array([m is None for m in mapped] + [False], dtype=bool)[codes]
             flag(np.flatnonzero(unknown), col.name, lambda p, s=series, c=col: f"unknown {c.name} {s.iloc[p]!r} (allowed: {', '.join(c.choices)})")
-            df[col.name] = series.map(lambda v, m=mapping: m.get(v) if v is not None else None)
+            df[col.name] = pd.Series(np.array(mapped + [None], dtype=object)[codes], index=df.index, dtype=object)
         elif col.kind == "date":
-            present = series.notna().to_numpy()
-            shaped = series.map(lambda v: bool(_ISO_DATE.match(v)) if isinstance(v, str) else False).to_numpy(dtype=bool)
-            parsed = pd.to_datetime(series.where(shaped), format="%Y-%m-%d", errors="coerce")
-            wrong = present & (~shaped | parsed.isna().to_numpy())
+            codes, uniques = pd.factorize(cells)
+            u = pd.Series(uniques, dtype=object)
+            shaped_u = np.array([bool(_ISO_DATE.match(v)) if isinstance(v, str) else False for v in uniques.tolist()], dtype=bool)
+            parsed_u = pd.to_datetime(u.where(shaped_u), format="%Y-%m-%d", errors="coerce")
+            ok_u = shaped_u & parsed_u.notna().to_numpy()
+            wrong = (codes >= 0) & ~np.append(ok_u, True)[codes]
             flag(np.flatnonzero(wrong), col.name, lambda p, s=series: f"not a date: {s.iloc[p]!r} (write YYYY-MM-DD)")
-            df[col.db] = [d.date() if not pd.isna(d) else None for d in parsed]
+            dates = [d.date() if not pd.isna(d) else None for d in parsed_u] + [None]
+            df[col.db] = pd.Series(np.array(dates, dtype=object)[codes], index=df.index, dtype=object)
         elif col.is_quantity:
             res = parse_quantity_column(series, col.kind, positive=col.positive, low=col.low, high=col.high)
             for pos, msg in res.errors:
@@ -231,12 +244,24 @@ def content_hashes(df: pd.DataFrame, spec: TableSpec) -> list[str]:
     cols = [c.name for c in spec.columns if c.name != "source"]
     if df.empty:
         return []
-    payload = pd.Series(
-        ["\x1f".join("" if v is None or (isinstance(v, float) and np.isnan(v)) else str(v) for v in row) for row in zip(*(df[c] for c in cols))],
-        index=df.index,
-    )
-    occurrence = payload.groupby(payload, sort=False).cumcount()
-    return [hashlib.sha256(f"{spec.name}\x1e{p}\x1e{k}".encode()).hexdigest() for p, k in zip(payload, occurrence)]
+    columns = []
+    for c in cols:
+        cells = df[c].to_numpy(dtype=object).copy()
+        cells[pd.isna(cells)] = ""
+        columns.append(cells.tolist())
+    try:
+        payloads = ["\x1f".join(cells) for cells in zip(*columns)]
+    except TypeError:  # a cell that is not text
+        payloads = ["\x1f".join(map(str, cells)) for cells in zip(*columns)]
+    seen: dict[str, int] = {}
+    out = []
+    sha256 = hashlib.sha256
+    prefix = f"{spec.name}\x1e"
+    for p in payloads:
+        k = seen.get(p, 0)
+        seen[p] = k + 1
+        out.append(sha256(f"{prefix}{p}\x1e{k}".encode()).hexdigest())
+    return out
 
 
 __all__ = ["Validated", "validate_tables", "content_hashes"]

@@ -376,9 +376,10 @@ def min_incubation(
     koff t = ln(2x/(x-1))/(1+x) (closed form, exact).  Competition: fold(t)
     need not be monotone (a fast competitor reads too potent early), so fold
     is scanned on ``n_scan`` log-spaced times up to 60 slowest relaxation
-    times, and the last excursion outside [1/tolerance, tolerance] is refined
-    by bisection (relative 1e-9).  The reading is "within tolerance" from the
-    returned time on.
+    times, and the end of the last excursion outside [1/tolerance, tolerance]
+    is refined by a bracketed root search on the band edge it crosses
+    (:func:`find_root`, relative 1e-12).  The reading is "within tolerance"
+    from the returned time on.
     """
     if not np.all(np.asarray(tolerance, dtype=float) > 1.0):
         raise InputError("tolerance must be a fold greater than 1, e.g. 1.25")
@@ -422,13 +423,16 @@ def min_incubation(
     if sel.size:
         lo = np.log(grid[sel, last[sel]])
         hi = np.log(grid[sel, last[sel] + 1])
-        for _ in range(36):
-            mid = 0.5 * (lo + hi)
-            fm = fold_at(np.exp(mid), sel)
-            out = (fm > tol[sel]) | (fm < 1.0 / tol[sel])
-            lo = np.where(out, mid, lo)
-            hi = np.where(out, hi, mid)
-        result[sel] = np.exp(hi)
+        # the band edge crossed between the last out-of-band node and the next (in-band) one
+        above = f[sel, last[sel]] > tol[sel]
+        edge = np.where(above, tol[sel], 1.0 / tol[sel])
+        sign = np.where(above, 1.0, -1.0)
+
+        def g(log_t, idx):  # > 0 outside the band at that edge, <= 0 inside
+            return sign[idx] * (fold_at(np.exp(log_t), sel[idx]) - edge[idx])
+
+        x = find_root(g, lo, hi, xtol=1e-12)
+        result[sel] = np.exp(np.where(np.isfinite(x), x, hi))  # no sign change (never expected): the in-band node
     return result.reshape(shape)
 
 

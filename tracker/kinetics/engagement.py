@@ -36,8 +36,9 @@ see tests/kinetics/test_engagement*.py and benchmarks/bench_simulation.py.
 
 Public API
 ----------
-``engagement_metrics(kon, koff, route, cmax, tmax, half_life, threshold=0.3, dosing_interval=None, n_doses=1)``
-    -> :class:`EngagementMetrics` of arrays (one entry per compound).  Route
+``engagement_metrics(kon, koff, route, cmax, tmax, half_life, threshold=0.3, dosing_interval=None, n_doses=1, metrics=None)``
+    -> :class:`EngagementMetrics` of arrays (one entry per compound); ``metrics``
+    names a subset to compute (the rest NaN).  Route
     ``"oral"`` or ``"iv"`` (for iv, ``cmax`` is the free concentration at
     t = 0 and ``tmax`` is ignored).  ``cmax`` is the single-dose free Cmax.
 ``engagement_timeseries(kon, koff, route, cmax, tmax, half_life, dosing_interval=None, n_doses=1, t_end=None, max_points=2000)``
@@ -631,6 +632,7 @@ def engagement_metrics(
     n_doses=1,
     *,
     steps=DEFAULT_STEPS,
+    metrics=None,
 ) -> EngagementMetrics:
     """Occupancy metrics under PK for arrays of compounds (SI units; see module docstring).
 
@@ -639,7 +641,11 @@ def engagement_metrics(
     oral), ``half_life`` (s), ``threshold`` (0-1), ``dosing_interval`` (s or
     None for a single dose), ``n_doses`` (int, or an int array: compounds are
     grouped by it).  ``steps``: grid steps (last interval, each earlier one).
+    ``metrics``: names of the metrics wanted (default all); the others are
+    NaN and their extra work is skipped (the steady-state trough costs two
+    more integrations, the rapid-equilibrium metrics their own root searches).
     """
+    wanted = _wanted(metrics)
     shape, (kon, koff, route, cmax, tmax, hl, thr, tau) = _prepare(
         kon, koff, route, cmax, tmax, half_life, threshold, dosing_interval
     )
@@ -660,7 +666,7 @@ def engagement_metrics(
                 route[idx], cmax[idx], hl[idx], np.where(route[idx] == "oral", tmax[idx], np.nan),
                 _tau_or_none(tau[idx]), int(nval),
             )
-            res = _metrics_chunk(reg, kon[idx], koff[idx], thr[idx], steps)
+            res = _metrics_chunk(reg, kon[idx], koff[idx], thr[idx], steps, wanted)
             for k, v in res.items():
                 out[k][idx] = v
     return EngagementMetrics(**{k: v.reshape(shape) for k, v in out.items()})
@@ -674,20 +680,40 @@ def _tau_or_none(tau_i):
     return tau_i
 
 
-def _metrics_chunk(reg, kon, koff, thr, steps):
+_METRIC_NAMES = tuple(f.name for f in fields(EngagementMetrics))
+
+
+def _wanted(metrics) -> frozenset:
+    if metrics is None:
+        return frozenset(_METRIC_NAMES)
+    wanted = frozenset([metrics] if isinstance(metrics, str) else metrics)
+    unknown = wanted - set(_METRIC_NAMES)
+    if unknown:
+        raise InputError(f"unknown engagement metric {sorted(unknown)[0]!r} (known: {', '.join(_METRIC_NAMES)})")
+    return wanted
+
+
+def _metrics_chunk(reg, kon, koff, thr, steps, wanted=frozenset(_METRIC_NAMES)):
+    n = kon.size
+    nan = np.full(n, np.nan)
     run = _solve(reg, kon, koff, thr, steps)
-    onset, offset, dur = _theta_level_metrics(run, thr)
-    peak, peak_t = _peak(run, +1)
-    # PD half-life: from the last fall below threshold to threshold/2
-    _, off_half, _ = _theta_level_metrics(run, thr / 2.0)
-    pd_half = np.where(np.isfinite(offset) & np.isfinite(off_half), off_half - offset, np.nan)
+    onset = offset = dur = peak = peak_t = pd_half = r_on = r_off = r_peak = nan
+    if wanted & {"onset_s", "offset_s", "duration_above_threshold_s", "pd_half_life_s"}:
+        onset, offset, dur = _theta_level_metrics(run, thr)
+    if wanted & {"peak_occupancy", "peak_time_s"}:
+        peak, peak_t = _peak(run, +1)
+    if "pd_half_life_s" in wanted:
+        # PD half-life: from the last fall below threshold to threshold/2
+        _, off_half, _ = _theta_level_metrics(run, thr / 2.0)
+        pd_half = np.where(np.isfinite(offset) & np.isfinite(off_half), off_half - offset, np.nan)
     k_term = np.where(reg.oral, np.minimum(reg.ka, reg.ke), reg.ke)
     terminal = LN2 / np.minimum(koff, k_term)
-    r_on, r_off, r_peak = _rapid_metrics(run, thr)
-    trough = np.full(kon.size, np.nan)
-    if np.all(np.isfinite(reg.tau)):
+    if wanted & {"rapid_onset_s", "rapid_offset_s", "rapid_peak_occupancy"}:
+        r_on, r_off, r_peak = _rapid_metrics(run, thr)
+    trough = nan
+    if "trough_occupancy" in wanted and np.all(np.isfinite(reg.tau)):
         trough = _steady_trough(reg, kon, koff, thr, steps)
-    return {
+    out = {
         "onset_s": onset,
         "offset_s": offset,
         "duration_above_threshold_s": dur,
@@ -700,6 +726,7 @@ def _metrics_chunk(reg, kon, koff, thr, steps):
         "rapid_offset_s": r_off,
         "rapid_peak_occupancy": r_peak,
     }
+    return {k: (v if k in wanted else nan) for k, v in out.items()}
 
 
 def _steady_trough(reg, kon, koff, thr, steps):

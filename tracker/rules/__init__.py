@@ -12,6 +12,17 @@ Grades: ``high`` > ``moderate`` > ``low`` > ``clear`` (``clear``: no finding).
 """
 
 from .config import DEFAULTS, GRADES, RULES, RULESET_VERSION, SEVERITIES, RuleConfig
-from .grader import GradeResult, Portfolio, grade_frames
 
 __all__ = ["DEFAULTS", "GRADES", "RULES", "RULESET_VERSION", "SEVERITIES", "RuleConfig", "GradeResult", "Portfolio", "grade_frames"]
+
+_FROM_GRADER = ("GradeResult", "Portfolio", "grade_frames")
+
+
+def __getattr__(name: str):
+    # the grader pulls in the simulations (scipy); import it on first use, so that reading the
+    # configuration (``krt gate`` builds its parser from it) does not cost every command that import
+    if name in _FROM_GRADER:
+        from . import grader
+
+        return getattr(grader, name)
+    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")

@@ -202,9 +202,12 @@ def _empty() -> pd.DataFrame:
 
 
 def _frame(records: list[dict]) -> pd.DataFrame:
+    """Findings as a frame; the text columns stay Python objects (pandas would convert them to Arrow
+    strings, which every later row-wise read, e.g. the JSON output, pays for again)."""
     if not records:
         return _empty()
-    return pd.DataFrame.from_records(records, columns=FINDING_COLUMNS)
+    cols = {c: [r.get(c, np.nan) for r in records] for c in FINDING_COLUMNS}
+    return pd.DataFrame({c: (pd.Series(v) if c == "compound_id" else pd.Series(v, dtype=object)) for c, v in cols.items()})
 
 
 def suggest_assay(formats, has_tracer: bool = False) -> str:
@@ -737,16 +740,19 @@ _LIMIT_PROMPTS = {
 _PROFILE_COLUMNS = ("engagement_threshold", "onset_max_s", "duration_min_s", "offset_max_s", "dosing_interval_s")
 
 
-def _metrics(kon, koff, route, cmax, tmax, hl, thr, tau) -> dict[str, np.ndarray]:
-    """engagement_metrics over rows, called once per group (with and without a dosing interval)."""
+_CHECKED_METRICS = ("onset_s", "offset_s", "duration_above_threshold_s", "peak_occupancy", "trough_occupancy")
+
+
+def _metrics(kon, koff, route, cmax, tmax, hl, thr, tau, wanted=_CHECKED_METRICS) -> dict[str, np.ndarray]:
+    """engagement_metrics over rows, called once per group (with and without a dosing interval); only ``wanted`` computed."""
     n = kon.size
-    out = {k: np.full(n, np.nan) for k in ("onset_s", "offset_s", "duration_above_threshold_s", "peak_occupancy", "trough_occupancy")}
+    out = {k: np.full(n, np.nan) for k in _CHECKED_METRICS}
     has_tau = np.isfinite(tau)
     for grp in (has_tau, ~has_tau):
         if not grp.any():
             continue
         m = engagement_metrics(kon[grp], koff[grp], route[grp], cmax[grp], np.where(route[grp] == "oral", tmax[grp], np.nan),
-                               hl[grp], thr[grp], tau[grp] if has_tau[grp].all() else None)
+                               hl[grp], thr[grp], tau[grp] if has_tau[grp].all() else None, metrics=wanted)
         for k in out:
             out[k][grp] = getattr(m, k)
     return out
@@ -906,7 +912,9 @@ def _intervals(fails, frame, ci, kon, route, cmax, tmax, hl, thr, tau) -> None:
         return
     idx = ci[np.asarray(rows)]
     both = np.concatenate([idx, idx])  # both interval ends in one simulation call per dosing group
-    met = _metrics(kon[both], np.concatenate([k_lo[idx], k_hi[idx]]), route[both], cmax[both], tmax[both], hl[both], thr[both], tau[both])
+    wanted = tuple(sorted({_METRIC_OF_LIMIT[f["limit"]] for f in fails}))  # only the metrics that failed
+    met = _metrics(kon[both], np.concatenate([k_lo[idx], k_hi[idx]]), route[both], cmax[both], tmax[both], hl[both], thr[both], tau[both],
+                   wanted)
     ends = [{k: v[: idx.size] for k, v in met.items()}, {k: v[idx.size :] for k, v in met.items()}]
     pos = {r: p for p, r in enumerate(rows)}
     for f in fails:

@@ -19,12 +19,12 @@ import pandas as pd
 from sqlalchemy import select
 
 from ..db import queries
-from ..db.audit import chain_head, verify_chain
+from ..db.audit import chain_head, in_ranges, rows_digest, verify_chain
 from ..db.models import AuditEvent, Compound, Decision, KineticMeasurement, PKProfile, Potency, TimeCourse
 from ..db.uow import UnitOfWork
 from ..errors import NotFoundError
 
-__all__ = ["verify", "verify_decisions", "decision_fields", "show", "events_as_records"]
+__all__ = ["verify", "verify_decisions", "verify_imports", "decision_fields", "show", "events_as_records"]
 
 #: Decision columns copied into the gate's audit event; the JSON texts enter as SHA-256 digests.
 DECISION_FIELDS = ("compound_id", "from_stage", "to_stage", "outcome", "by_user", "reason", "ruleset_version")
@@ -34,6 +34,16 @@ _MEASUREMENT_ENTITIES = {
     KineticMeasurement: ("kinetic_measurements", "kinetic_measurement"),
     PKProfile: ("pk_profiles", "pk_profile"),
     TimeCourse: ("time_courses", "time_course"),
+}
+
+
+#: Tables whose imports are audited as one summary event each, and the line per row its ``rows_sha256`` covers.
+_IMPORTED = {
+    "compounds": (Compound, lambda r: f"{r[0]}\t{r[1]}", (Compound.id, Compound.name)),
+    "potency": (Potency, lambda r: f"{r[0]}\t{r[1]}\t{r[2]}", (Potency.id, Potency.compound_id, Potency.content_hash)),
+    "kinetic_measurements": (KineticMeasurement, lambda r: f"{r[0]}\t{r[1]}\t{r[2]}",
+                             (KineticMeasurement.id, KineticMeasurement.compound_id, KineticMeasurement.content_hash)),
+    "pk_profiles": (PKProfile, lambda r: f"{r[0]}\t{r[1]}\t{r[2]}", (PKProfile.id, PKProfile.compound_id, PKProfile.content_hash)),
 }
 
 
@@ -89,8 +99,45 @@ def verify_decisions(session) -> tuple[bool, int | None, str]:
     return True, None, f"{n} decision(s) match their audit events"
 
 
+def _import_events(session):
+    """``(event id, table, after)`` of every import summary that names its rows (``id_ranges`` + ``rows_sha256``)."""
+    stmt = (select(AuditEvent.id, AuditEvent.entity_type, AuditEvent.after_json)
+            .where(AuditEvent.action == "import", AuditEvent.entity_type.in_(list(_IMPORTED))).order_by(AuditEvent.id))
+    for eid, table, after in session.execute(stmt):
+        try:
+            rec = json.loads(after) if after else {}
+        except ValueError:
+            rec = {}
+        if isinstance(rec, dict) and "rows_sha256" in rec and isinstance(rec.get("id_ranges"), list):
+            yield eid, table, rec
+
+
+def verify_imports(session) -> tuple[bool, int | None, str]:
+    """Each import summary against the rows it wrote: same ids, same digest (see :mod:`tracker.services.importing`).
+
+    A row removed, added inside an imported id range, re-pointed to another
+    compound, given another content hash or (compounds) renamed breaks the
+    match.  Returns ``(ok, first_broken_event_id, message)``.
+    """
+    lines_of: dict[str, dict[int, str]] = {}
+    n = 0
+    for eid, table, rec in _import_events(session):
+        model, line, cols = _IMPORTED[table]
+        if table not in lines_of:
+            lines_of[table] = {r[0]: line(r) for r in session.execute(select(*cols))}
+        stored = lines_of[table]
+        wanted = [(int(lo), int(hi)) for lo, hi in rec["id_ranges"]]
+        expected = sum(hi - lo + 1 for lo, hi in wanted)
+        lines = [stored[i] for lo, hi in wanted for i in range(lo, hi + 1) if i in stored]
+        if len(lines) != expected or rows_digest(lines) != rec["rows_sha256"]:
+            return False, eid, (f"audit event {eid}: the {table} rows it imported no longer match it "
+                                f"({len(lines)} of {expected} present; a row was removed or changed outside the application)")
+        n += 1
+    return True, None, f"{n} import(s) match their rows"
+
+
 def verify(engine) -> dict[str, Any]:
-    """The hash chain, then every decision against its event.
+    """The hash chain, then every decision and every import summary against its rows.
 
     ``{ok, first_broken_id, message, head_id, head_hash}``.
     """
@@ -102,7 +149,11 @@ def verify(engine) -> dict[str, Any]:
             if not d_ok:
                 ok, broken, message = False, d_broken, d_message
             else:
-                message = f"{message}; {d_message}"
+                i_ok, i_broken, i_message = verify_imports(uow.session)
+                if not i_ok:
+                    ok, broken, message = False, i_broken, i_message
+                else:
+                    message = f"{message}; {d_message}; {i_message}"
     return {"ok": ok, "first_broken_id": broken, "message": message, "head_id": head_id, "head_hash": head_hash}
 
 
@@ -110,8 +161,9 @@ def show(engine, compound: str | None = None, limit: int | None = None, newest_f
     """Audit events, all or those about one compound.
 
     A compound's events: the compound itself (creation, updates, stage changes,
-    waivers), its decisions, and events naming one of its measurements by id.
-    Import summaries list their ids inside ``after_json`` and are not matched.
+    waivers), its decisions, events naming one of its measurements by id, and
+    the import summaries whose ``id_ranges`` hold the compound or one of its
+    measurements.
     """
     with UnitOfWork(engine, write=False) as uow:
         s = uow.session
@@ -122,10 +174,15 @@ def show(engine, compound: str | None = None, limit: int | None = None, newest_f
                 raise NotFoundError(f"no compound named {compound!r}")
             keys = {("compound", str(cid))}
             keys |= {("decision", str(d)) for d in s.execute(select(Decision.id).where(Decision.compound_id == cid)).scalars()}
+            mine: dict[str, list[int]] = {"compounds": [cid]}
             for model, names in _MEASUREMENT_ENTITIES.items():
-                for mid in s.execute(select(model.id).where(model.compound_id == cid)).scalars():
+                ids = list(s.execute(select(model.id).where(model.compound_id == cid)).scalars())
+                mine[names[0]] = ids
+                for mid in ids:
                     keys |= {(n, str(mid)) for n in names}
-            mask = [(t, e) in keys for t, e in zip(df["entity_type"], df["entity_id"])]
+            imports = {eid for eid, table, rec in _import_events(s)
+                       if any(in_ranges(i, rec["id_ranges"]) for i in mine.get(table, ()))}
+            mask = [(t, e) in keys or i in imports for t, e, i in zip(df["entity_type"], df["entity_id"], df["id"])]
             df = df[pd.Series(mask, index=df.index, dtype=bool)] if len(df) else df
     if limit is not None:
         df = df.head(int(limit))

@@ -11,8 +11,19 @@ Re-importing the same rows adds nothing: measurements carry a content hash
 unique per compound, programs and compounds are matched by name.  A stage
 change of an existing compound is refused (stages change through gates);
 other changed fields of programs and compounds are updated and audited with
-their before and after values.  Every import appends audit events: one per
-program or compound created or updated, one summary per measurement table.
+their before and after values.
+
+An import is one write, and it is audited as one: besides one event per
+program created and one per program or compound updated (with before and
+after), each table it added rows to gets one ``import`` event naming the
+files, the counts, the new rows' ids as ``id_ranges`` and ``rows_sha256``,
+a SHA-256 over one line per row (``id<TAB>name`` for compounds,
+``id<TAB>compound_id<TAB>content_hash`` for measurements; see
+:func:`tracker.db.audit.rows_digest`).  The event is part of the hash chain,
+so who imported which rows when stays attributable and a row later added,
+dropped or renamed outside the application no longer matches its event.
+Rows are written with :func:`tracker.db.bulk.insert_columns` (executemany on
+SQLite, COPY on PostgreSQL).
 """
 
 from __future__ import annotations
@@ -31,7 +42,8 @@ from sqlalchemy import Engine, func, insert, select, update
 from sqlalchemy import exc as sa_exc
 from sqlalchemy.orm import Session
 
-from ..db.audit import append_events
+from ..db.audit import append_events, id_ranges, rows_digest
+from ..db.bulk import insert_columns, insert_columns_ids
 from ..db.models import Compound, KineticMeasurement, PKProfile, Potency, Program, StageHistory, User
 from ..db.session import with_retry
 from ..db.uow import UnitOfWork
@@ -142,12 +154,27 @@ def _check_actor(session: Session, actor: str) -> None:
 
 def _records(df: pd.DataFrame, columns: dict[str, str]) -> list[dict[str, Any]]:
     """Rows as dicts ``{db_column: python value}`` with NaN/NA as ``None`` and numpy scalars unwrapped."""
-    out_cols = {}
-    for db_col, src in columns.items():
-        values = df[src].tolist()
-        out_cols[db_col] = [_py(v) for v in values]
-    n = len(df)
-    return [{k: out_cols[k][i] for k in out_cols} for i in range(n)]
+    cols = _columns(df, columns)
+    keys = list(cols)
+    return [dict(zip(keys, values)) for values in zip(*cols.values())]
+
+
+def _columns(df: pd.DataFrame, columns: dict[str, str]) -> dict[str, list[Any]]:
+    """``{db_column: list of python values}`` (NaN/NA as ``None``), converted a column at a time."""
+    return {db_col: _values(df[src]) for db_col, src in columns.items()}
+
+
+def _values(s: pd.Series) -> list[Any]:
+    kind = s.dtype.kind
+    if kind == "f":
+        arr = s.to_numpy(dtype=float)
+        out = arr.tolist()
+        for i in np.flatnonzero(np.isnan(arr)).tolist():
+            out[i] = None
+        return out
+    if kind in "iub":
+        return s.tolist()
+    return [v if v is None or type(v) is str else _py(v) for v in s.tolist()]
 
 
 def _py(v: Any) -> Any:
@@ -213,35 +240,28 @@ def _write(session: Session, v: Validated, actor: str, prog: Progress) -> dict[s
         updated = _update_programs(session, programs_df, stored_programs, actor, reason, events)
         summary["tables"]["programs"] = _stat(v, "programs", len(rows), updated, len(programs_df) - len(rows) - updated)
 
-    program_names = {i: n for n, i in program_ids.items()}
-
-    # -- compounds (+ stage history of new ones)
+    # -- compounds (+ stage history of new ones): bulk inserts, one summary event for the rows created
     if "compounds" in v.tables:
         existing = compounds_df["compound"].isin(compound_rows.index)
         new = compounds_df[~existing].copy()
         new["_program_id"] = new["program"].map(program_ids)
-        rows = _records(new, {"name": "compound", "program_id": "_program_id", **_db_columns(COMPOUNDS, skip=("compound",))})
-        for r in rows:
-            r["created_at"] = now
-        for i in range(0, len(rows), CHUNK):
-            session.execute(insert(Compound), rows[i : i + CHUNK])
-            prog.say(f"compounds {min(i + CHUNK, len(rows)):,}/{len(rows):,}", transient=True)
-        new_ids: dict[str, int] = {}
-        if rows:
-            new_ids = dict(session.execute(select(Compound.name, Compound.id).where(Compound.created_at == now)).all())
-        files_of = dict(zip(new["compound"], new["_label"]))
-        history = [
-            {"compound_id": new_ids[r["name"]], "from_stage": None, "to_stage": r["stage"], "at": now, "by_user": actor,
-             "decision_id": None, "note": f"created by import of {files_of[r['name']]}"}
-            for r in rows
-        ]
-        for i in range(0, len(history), CHUNK):
-            session.execute(insert(StageHistory), history[i : i + CHUNK])
-        for r in rows:
-            after = _public(r) | {"program": program_names[r["program_id"]]}
-            events.append(_event(actor, "create", "compound", new_ids[r["name"]], None, after, reason))
+        cols = _columns(new, {"name": "compound", "program_id": "_program_id", **_db_columns(COMPOUNDS, skip=("compound",))})
+        new_ids = dict(zip(cols["name"], _insert(session, Compound.__table__, cols, {"created_at": now}, "compounds", prog, ("name",))))
+        n_new = len(new_ids)
+        if n_new:
+            insert_columns(
+                session, StageHistory.__table__,
+                {"compound_id": [new_ids[name] for name in cols["name"]], "to_stage": cols["stage"],
+                 "note": [f"created by import of {label}" for label in new["_label"].tolist()]},
+                {"from_stage": None, "at": now, "by_user": actor, "decision_id": None},
+            )
         updated = _update_compounds(session, compounds_df[existing], compound_rows, actor, reason, events)
-        summary["tables"]["compounds"] = _stat(v, "compounds", len(rows), updated, int(existing.sum()) - updated)
+        summary["tables"]["compounds"] = _stat(v, "compounds", n_new, updated, int(existing.sum()) - updated)
+        if n_new:
+            events.append(_event(actor, "import", Compound.__tablename__, None, None,
+                                 {"files": v.files["compounds"], "rows": len(compounds_df), "inserted": n_new,
+                                  "stages": {k: int(c) for k, c in new["stage"].value_counts().sort_index().items()},
+                                  **_identity(new_ids.values(), (f"{i}\t{name}" for name, i in new_ids.items()))}, reason))
         compound_ids = dict(zip(stored_compounds["name"], stored_compounds["id"])) | new_ids
     else:
         compound_ids = dict(zip(stored_compounds["name"], stored_compounds["id"]))
@@ -255,30 +275,23 @@ def _write(session: Session, v: Validated, actor: str, prog: Progress) -> dict[s
         ids = df["compound"].map(compound_ids)
         stored = {tuple(r) for r in session.execute(select(model.compound_id, model.content_hash))}
         keys = list(zip(ids.tolist(), df["content_hash"].tolist()))
-        is_new = np.array([k not in stored for k in keys], dtype=bool)
+        is_new = np.fromiter((k not in stored for k in keys), dtype=bool, count=len(keys)) if stored else np.ones(len(keys), dtype=bool)
         # replicate rows identical within one import have distinct hashes already (occurrence number)
         new = df[is_new].copy()
         new["_compound_id"] = ids[is_new]
         cols = {"compound_id": "_compound_id", **_db_columns(spec, skip=("compound",)), "content_hash": "content_hash"}
         if name == "kinetics":
             cols.update({"koff_per_s": "koff_per_s", "koff_text": "koff_text", "koff_given_as": "koff_given_as"})
-        rows = _records(new, cols)
-        for r in rows:
-            r["created_at"] = now
-        for i in range(0, len(rows), CHUNK):
-            session.execute(insert(model), rows[i : i + CHUNK])
-            prog.say(f"{name} {min(i + CHUNK, len(rows)):,}/{len(rows):,}", transient=True)
-        inserted: list[int] = []
-        if rows:
-            mine = {(r["compound_id"], r["content_hash"]) for r in rows}
-            got = session.execute(select(model.id, model.compound_id, model.content_hash).where(model.created_at == now)).all()
-            inserted = [i for i, c, h in got if (c, h) in mine]
-        summary["tables"][name] = _stat(v, name, len(rows), 0, len(df) - len(rows))
-        if rows:
+        values = _columns(new, cols)
+        new_ids = _insert(session, model.__table__, values, {"created_at": now}, name, prog, ("compound_id", "content_hash"))
+        n_rows = len(new_ids)
+        summary["tables"][name] = _stat(v, name, n_rows, 0, len(df) - n_rows)
+        if n_rows:
+            inserted = list(zip(new_ids, values["compound_id"], values["content_hash"]))
             events.append(
                 _event(actor, "import", model.__tablename__, None, None,
-                       {"files": v.files[name], "rows": len(df), "inserted": len(rows), "duplicates_skipped": len(df) - len(rows),
-                        "ids": sorted(inserted)}, reason)
+                       {"files": v.files[name], "rows": len(df), "inserted": n_rows, "duplicates_skipped": len(df) - n_rows,
+                        **_identity((i for i, _, _ in inserted), (f"{i}\t{c}\t{h}" for i, c, h in inserted))}, reason)
             )
 
     append_events(session, events)
@@ -327,6 +340,33 @@ def _stat(v: Validated, table: str, inserted: int, updated: int, unchanged: int)
 
 def _public(row: dict[str, Any]) -> dict[str, Any]:
     return {k: (v.isoformat() if isinstance(v, (dt.date, dt.datetime)) else v) for k, v in row.items() if k != "created_at" and not k.startswith("_")}
+
+
+def _insert(session: Session, table, cols: dict[str, list[Any]], constants: dict[str, Any], label: str, prog: Progress,
+            key: tuple[str, ...]) -> list[int]:
+    """Insert in chunks of :data:`CHUNK` rows (progress after each); returns the new ids in row order.
+
+    Ids come from :func:`insert_columns_ids`; where another writer's rows
+    interleaved (PostgreSQL) a chunk's ids are read back by ``key`` columns
+    and ``created_at``.
+    """
+    n = len(next(iter(cols.values()), []))
+    ids: list[int] = []
+    for i in range(0, n, CHUNK):
+        part = {k: v[i : i + CHUNK] for k, v in cols.items()}
+        got = insert_columns_ids(session, table, part, constants)
+        if got is None:
+            by_key = {tuple(r[1:]): r[0] for r in session.execute(
+                select(table.c.id, *(table.c[k] for k in key)).where(table.c.created_at == constants["created_at"]))}
+            got = [by_key[k] for k in zip(*(part[k] for k in key))]
+        ids += got
+        prog.say(f"{label} {min(i + CHUNK, n):,}/{n:,}", transient=True)
+    return ids
+
+
+def _identity(ids: Iterable[int], lines: Iterable[str]) -> dict[str, Any]:
+    """What an import's summary event records of the rows it wrote: their ids as runs and a digest of the rows."""
+    return {"id_ranges": id_ranges(ids), "rows_sha256": rows_digest(lines)}
 
 
 def _event(actor, action, entity_type, entity_id, before, after, reason) -> dict[str, Any]:
