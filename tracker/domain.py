@@ -34,6 +34,17 @@ METHODS: tuple[str, ...] = (
     "other",
 )
 
+#: Fit methods of raw time courses and dose-response sets (``krt fit METHOD``).
+FIT_METHODS: tuple[str, ...] = (
+    "dissociation",
+    "association",
+    "competition-kinetics",
+    "jump-dilution",
+    "washout-recovery",
+    "ki-shift",
+    "insurmountability",
+)
+
 #: Routes of administration of a PK profile.
 ROUTES: tuple[str, ...] = ("oral", "iv")
 
@@ -63,4 +74,4 @@ def canonical(value: str, allowed: tuple[str, ...]) -> str | None:
     return None
 
 
-__all__ = ["STAGES", "READOUTS", "FORMATS", "METHODS", "ROUTES", "ROLES", "OUTCOMES", "stage_index", "canonical", "normalise_token"]
+__all__ = ["STAGES", "READOUTS", "FORMATS", "METHODS", "FIT_METHODS", "ROUTES", "ROLES", "OUTCOMES", "stage_index", "canonical", "normalise_token"]

@@ -50,18 +50,10 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from ..domain import FIT_METHODS as METHODS
 from ..errors import FitError, InputError, KrtError, UnitError
 from ..units import fmt_conc, fmt_rate1, fmt_rate2, fmt_time, parse_quantity, unit_factor
 
-METHODS = (
-    "dissociation",
-    "association",
-    "competition-kinetics",
-    "jump-dilution",
-    "washout-recovery",
-    "ki-shift",
-    "insurmountability",
-)
 TIME_UNITS = ("s", "min", "h")
 CONC_UNITS = ("M", "mM", "uM", "nM", "pM")
 COLUMNS = {"time": "time", "signal": "signal", "concentration": "concentration", "curve": "curve", "incubation": "time"}

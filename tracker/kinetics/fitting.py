@@ -54,6 +54,7 @@ from typing import Any, Callable, Iterable, Mapping, Sequence
 import numpy as np
 from scipy import optimize, stats
 
+from ..domain import FIT_METHODS as METHODS
 from ..errors import FitError
 from . import fitmodels as fm
 from .equations import LN2, cheng_prusoff_ki
@@ -76,15 +77,6 @@ __all__ = [
 ]
 
 SCHEMA_VERSION = 1
-METHODS = (
-    "dissociation",
-    "association",
-    "competition-kinetics",
-    "jump-dilution",
-    "washout-recovery",
-    "ki-shift",
-    "insurmountability",
-)
 
 # fitting limits, SI (wide: they only keep the optimiser in a physical range)
 KOFF_LIMITS = (1e-9, 1e3)  # 1/s
