@@ -7,35 +7,17 @@ on stderr, a non-zero exit and no traceback.
 
 from __future__ import annotations
 
-import json
 import math
 
 import pytest
 
-from tracker.cli import main
 from tracker.kinetics import assay
 
 H = 3600.0
 
 
-def run(capsys, argv):
-    try:
-        rc = main(argv)
-    except SystemExit as exc:  # argparse-level errors exit directly
-        rc = exc.code
-    out, err = capsys.readouterr()
-    return rc, out, err
-
-
-def run_json(capsys, argv):
-    rc, out, err = run(capsys, argv + ["--json"])
-    assert rc == 0, err
-    assert err == ""
-    return json.loads(out)
-
-
-def test_apparent_affinity_json_reports_the_saturation_reading_and_minimum_incubation(capsys):
-    d = run_json(capsys, ["simulate", "apparent-affinity", "--kd", "1 nM", "--residence-time", "6 h", "--incubation", "10 min"])
+def test_apparent_affinity_json_reports_the_saturation_reading_and_minimum_incubation(krt_cli):
+    d = krt_cli.json(["simulate", "apparent-affinity", "--kd", "1 nM", "--residence-time", "6 h", "--incubation", "10 min"])
     app, fold = assay.apparent_affinity(1e-9, 1 / (6 * H), 600)
     assert d["apparent_kd_M"] == pytest.approx(float(app), rel=1e-12)
     assert d["fold_shift"] == pytest.approx(float(fold), rel=1e-12)
@@ -45,45 +27,45 @@ def test_apparent_affinity_json_reports_the_saturation_reading_and_minimum_incub
     assert "not dosing advice" in d["caution"]
 
 
-def test_apparent_affinity_accepts_any_two_kinetic_constants(capsys):
+def test_apparent_affinity_accepts_any_two_kinetic_constants(krt_cli):
     koff = 1 / (6 * H)
-    a = run_json(capsys, ["simulate", "apparent-affinity", "--kd", "1 nM", "--koff", f"{koff} /s", "--incubation", "1 h"])
-    b = run_json(capsys, ["simulate", "apparent-affinity", "--kon", f"{koff / 1e-9} /M/s", "--residence-time", "6 h", "--incubation", "1 h"])
-    c = run_json(capsys, ["simulate", "apparent-affinity", "--kon", f"{koff / 1e-9} /M/s", "--kd", "1 nM", "--incubation", "60 min"])
+    a = krt_cli.json(["simulate", "apparent-affinity", "--kd", "1 nM", "--koff", f"{koff} /s", "--incubation", "1 h"])
+    b = krt_cli.json(["simulate", "apparent-affinity", "--kon", f"{koff / 1e-9} /M/s", "--residence-time", "6 h", "--incubation", "1 h"])
+    c = krt_cli.json(["simulate", "apparent-affinity", "--kon", f"{koff / 1e-9} /M/s", "--kd", "1 nM", "--incubation", "60 min"])
     assert a["apparent_kd_M"] == pytest.approx(b["apparent_kd_M"], rel=1e-9) == pytest.approx(c["apparent_kd_M"], rel=1e-9)
 
 
-def test_competition_format_reports_ic50_and_cheng_prusoff_ki(capsys):
+def test_competition_format_reports_ic50_and_cheng_prusoff_ki(krt_cli):
     argv = ["simulate", "apparent-affinity", "--kd", "1 nM", "--residence-time", "6 h", "--incubation", "1 h",
             "--format", "competition-binding", "--tracer-kd", "2 nM", "--tracer-residence-time", "1 min", "--tracer-conc", "2 nM"]
-    d = run_json(capsys, argv)
+    d = krt_cli.json(argv)
     assert d["apparent_ki_M"] == pytest.approx(d["ic50_M"] / 2.0, rel=1e-12)  # Cheng & Prusoff 1973, L = Kd
     assert d["fold_shift"] == pytest.approx(d["apparent_ki_M"] / 1e-9, rel=1e-12)
     assert "apparent_kd_M" not in d
-    pre = run_json(capsys, argv + ["--preincubation", "30 min"])
+    pre = krt_cli.json(argv + ["--preincubation", "30 min"])
     assert pre["preincubation_s"] == 1800 and pre["fold_shift"] < d["fold_shift"]
 
 
-def test_readable_report_uses_units_and_ends_with_the_caution(capsys):
-    rc, out, err = run(capsys, ["simulate", "apparent-affinity", "--kd", "23 pM", "--residence-time", "48 h", "--incubation", "1 h"])
+def test_readable_report_uses_units_and_ends_with_the_caution(krt_cli):
+    rc, out, err = krt_cli.run(["simulate", "apparent-affinity", "--kd", "23 pM", "--residence-time", "48 h", "--incubation", "1 h"])
     assert rc == 0 and err == ""
     assert "apparent KD 775 pM" in out  # common practice: ~690 pM (computed 775 pM), see test_assay.py
     assert "rule of thumb 2 x RT: 4 d" in out
     assert out.strip().splitlines()[-1].startswith("Caution: simulations are decision support, not dosing advice")
 
 
-def test_ki_shift_bounds_reports_an_interval_containing_the_simulated_residence_time(capsys):
+def test_ki_shift_bounds_reports_an_interval_containing_the_simulated_residence_time(krt_cli):
     rt = 1 * H
     ki_s, _ = assay.apparent_affinity(1e-9, 1 / rt, 600)
     ki_l, _ = assay.apparent_affinity(1e-9, 1 / rt, 3 * H)
-    d = run_json(capsys, ["simulate", "ki-shift-bounds", "--ratio", str(float(ki_s / ki_l)), "--short-incubation", "10 min",
+    d = krt_cli.json(["simulate", "ki-shift-bounds", "--ratio", str(float(ki_s / ki_l)), "--short-incubation", "10 min",
                           "--long-incubation", "3 h", "--ki", f"{float(ki_l)} M"])
     assert d["consistent"] and d["shift_detected"]
     assert d["rt_low_s"] < rt < d["rt_high_s"]
 
 
-def test_ki_shift_without_shift_reports_an_upper_bound(capsys):
-    d = run_json(capsys, ["simulate", "ki-shift-bounds", "--ratio", "1.0", "--short-incubation", "30 min",
+def test_ki_shift_without_shift_reports_an_upper_bound(krt_cli):
+    d = krt_cli.json(["simulate", "ki-shift-bounds", "--ratio", "1.0", "--short-incubation", "30 min",
                           "--long-incubation", "4 h", "--ki", "5 nM", "--kon-range", "1e5 /M/s", "1e7 /M/s", "--ratio-tolerance", "1.3"])
     assert d["shift_detected"] is False
     assert d["rt_from_ratio_s"][0] == 0.0 and math.isfinite(d["rt_high_s"])
@@ -117,8 +99,8 @@ BAD = [
 
 
 @pytest.mark.parametrize("argv,fragment", BAD, ids=[f"bad{i}" for i in range(len(BAD))])
-def test_bad_input_gives_one_clear_line_and_a_nonzero_exit(capsys, argv, fragment):
-    rc, out, err = run(capsys, argv)
+def test_bad_input_gives_one_clear_line_and_a_nonzero_exit(krt_cli, argv, fragment):
+    rc, out, err = krt_cli.run(argv)
     assert rc != 0
     lines = err.strip().splitlines()
     assert len(lines) == 1, err
