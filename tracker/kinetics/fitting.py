@@ -56,6 +56,7 @@ from scipy import optimize, stats
 
 from ..domain import FIT_METHODS as METHODS
 from ..errors import FitError
+from ..units import fmt_conc
 from . import fitmodels as fm
 from .equations import LN2, cheng_prusoff_ki
 from .fitmodels import CURVE_FUNCTIONS, CurveInfo
@@ -898,6 +899,9 @@ def _arrays(x, y, what: str = "time") -> tuple[np.ndarray, np.ndarray]:
 
 
 def _label_text(v: float, unit: str) -> str:
+    """A readable curve label: concentrations in the handiest of fM..mM (``'0.1 nM'``), else ``value unit``."""
+    if unit == "M" and v > 0:
+        return fmt_conc(v, 4)
     return f"{v:.4g} {unit}"
 
 
