@@ -22,6 +22,16 @@ class _Runner:
         out, err = self._capsys.readouterr()
         return rc, out, err
 
+    def fails(self, argv, fragment):
+        """The command must fail with exactly one ``krt: error:`` line naming ``fragment``, and no traceback."""
+        rc, out, err = self.run(argv)
+        assert rc != 0
+        lines = err.strip().splitlines()
+        assert len(lines) == 1, err
+        assert lines[0].startswith("krt: error:")
+        assert fragment in lines[0]
+        assert "Traceback" not in err and out == ""
+
     def json(self, argv):
         """Run with ``--json``; the command must succeed silently on stderr."""
         rc, out, err = self.run(argv + ["--json"])
