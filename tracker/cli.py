@@ -14,7 +14,29 @@ import sys
 
 from .errors import ImportErrors, KrtError
 
-COMMAND_MODULES = ("db", "info", "io", "demo", "fit", "simulate", "grade", "queue", "users", "gate", "audit", "backup", "bench")
+# Every top-level command: name -> (module in tracker.commands, one-line help).
+# ``krt --help`` is built from this table alone; only the module of the command
+# being run is imported (``tests/services/test_cli_parser.py`` keeps the table
+# and the modules in step).
+COMMANDS: dict[str, tuple[str, str]] = {
+    "db": ("db", "create or migrate the database schema"),
+    "info": ("info", "database location, schema revision and row counts"),
+    "import": ("io", "import a CSV file, an .xlsx workbook or a folder of them (all or nothing)"),
+    "export": ("io", "write every table as CSV (and optionally one .xlsx) in the import format"),
+    "demo": ("demo", "the invented demo portfolio"),
+    "fit": ("fit", "fit a kinetic time course or dose-response set (koff, kon, residence time, Ki shift ...)"),
+    "simulate": ("simulate", "simulate apparent affinity, engagement under PK, RT bounds"),
+    "grade": ("grade", "grade every compound's kinetic risk (findings with numbers, prompts and cautions)"),
+    "rules": ("grade", "show or change the rule settings (thresholds) of a program"),
+    "queue": ("queue", "rank compounds by the value of a kinetic measurement, with the assay to use"),
+    "user": ("users", "add, list or change users (lead, scientist, viewer)"),
+    "gate": ("gate", "move a compound to another stage, gated on its grade (leads only; recorded)"),
+    "audit": ("audit", "verify or show the tamper-evident audit trail"),
+    "backup": ("backup", "back up the database (SQLite online copy, or an export-based backup with --export)"),
+    "restore": ("backup", "restore a backup into a new database and verify its audit trail"),
+    "bench": ("bench", "run every benchmark and print one table (needs a source checkout)"),
+}
+COMMAND_MODULES = tuple(dict.fromkeys(module for module, _ in COMMANDS.values()))
 
 
 class _Parser(argparse.ArgumentParser):
@@ -22,23 +44,42 @@ class _Parser(argparse.ArgumentParser):
         self.exit(2, f"krt: error: {message}\n")
 
 
-def build_parser() -> argparse.ArgumentParser:
+def _command_in(argv: list[str]) -> str | None:
+    """The command word of ``argv`` (the first positional, skipping ``--database URL``)."""
+    skip = False
+    for token in argv:
+        if skip:
+            skip = False
+        elif token == "--database":
+            skip = True
+        elif not token.startswith("-"):
+            return token
+    return None
+
+
+def build_parser(argv: list[str] | None = None, *, full: bool = False) -> argparse.ArgumentParser:
+    """The ``krt`` parser.
+
+    Only the module of the command named in ``argv`` registers its real
+    sub-parser; every other command gets a placeholder carrying its help line,
+    so ``krt --help`` imports no command implementation.  ``full=True``
+    registers every module (tests use it to check :data:`COMMANDS`).
+    """
     parser = _Parser(prog="krt", description="Kinetic-risk tracker for drug-discovery portfolios.")
     parser.add_argument("--database", metavar="URL", help="SQLAlchemy URL (default: $KRT_DATABASE_URL or a local SQLite file)")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
-    for name in COMMAND_MODULES:
-        try:
-            module = importlib.import_module(f"tracker.commands.{name}")
-        except ModuleNotFoundError as exc:
-            if exc.name == f"tracker.commands.{name}":
-                continue  # command not built yet
-            raise
-        module.register(sub)
+    wanted = COMMAND_MODULES if full else tuple(
+        {COMMANDS[c][0]} if (c := _command_in(sys.argv[1:] if argv is None else argv)) in COMMANDS else ())
+    for name in wanted:
+        importlib.import_module(f"tracker.commands.{name}").register(sub)
+    for name, (_, help_text) in COMMANDS.items():
+        if name not in sub.choices:
+            sub.add_parser(name, help=help_text, add_help=False)
     return parser
 
 
 def main(argv: list[str] | None = None) -> int:
-    parser = build_parser()
+    parser = build_parser(argv)
     args = parser.parse_args(argv)
     if args.database:
         import os
