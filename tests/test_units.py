@@ -94,7 +94,7 @@ def test_a_nan_float_is_refused_where_a_positive_value_is_required():
 
 
 def test_kon_above_1e9_warns_but_is_accepted_and_above_1e10_is_refused():
-    # Smoluchowski diffusion limit of order 1e9-1e10 /M/s (from memory, see REFERENCES.md Plausibility)
+    # Smoluchowski diffusion limit of order 1e9-1e10 /M/s (from memory, see docs/REFERENCES.md Plausibility)
     assert to_si("2e9 /M/s", "rate2") == pytest.approx(2e9)
     assert kon_warning(2e9) is not None
     assert kon_warning(1e7) is None

@@ -7,7 +7,7 @@ plus arbitrary text.  The cell-by-cell parser (:func:`tracker.units.parse_quanti
 and the column parser the importer uses (:func:`tracker.io.columns.parse_quantity_column`)
 must both refuse every bad cell and agree with each other on arbitrary text.
 The diffusion ceiling of ~1e10 /M/s is the Smoluchowski limit (from memory;
-see REFERENCES.md).  Seeds are fixed (``derandomize``), so CI sees the same cases.
+see docs/REFERENCES.md).  Seeds are fixed (``derandomize``), so CI sees the same cases.
 """
 
 from __future__ import annotations

@@ -60,7 +60,7 @@ ATOMS: dict[str, tuple[float, tuple[int, int]]] = {
     **{k: (v, (0, 1)) for k, v in _TIME.items()},
 }
 
-KON_WARN = 1e9  # /M/s: above practical ceilings for small molecules (from memory, see REFERENCES)
+KON_WARN = 1e9  # /M/s: above practical ceilings for small molecules (from memory, see docs/REFERENCES.md)
 KON_MAX = 1e10  # /M/s: Smoluchowski diffusion limit, order 1e9-1e10 /M/s (from memory)
 
 _NUMBER = re.compile(r"^\s*([+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?)\s*(.*?)\s*$")

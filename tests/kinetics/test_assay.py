@@ -3,7 +3,7 @@
 References used here:
 - scipy solve_ivp of the binding ODEs (computed; LSODA, rtol 1e-12, atol 1e-15),
 - scipy brentq on those integrated curves (computed),
-- Motulsky & Mahan 1984, Mol Pharmacol 25:1-9 (model and test vector in REFERENCES.md, computed),
+- Motulsky & Mahan 1984, Mol Pharmacol 25:1-9 (model and test vector in docs/REFERENCES.md, computed),
 - Cheng & Prusoff 1973, Biochem Pharmacol 22:3099-3108,
 - facts of the trade marked `common practice`.
 """
@@ -61,7 +61,7 @@ def test_saturation_occupancy_matches_the_integrated_binding_ode():
 
 
 def test_general_two_ligand_solution_reproduces_the_motulsky_mahan_test_vector():
-    # reference: REFERENCES.md test vector (computed; matches ODE integration to ~1e-11), Motulsky & Mahan 1984
+    # reference: docs/REFERENCES.md test vector (computed; matches ODE integration to ~1e-11), Motulsky & Mahan 1984
     per_min = 1 / 60.0
     t = np.array([1, 5, 10, 30, 60, 120, 240]) * MIN
     expected = [0.086265, 0.249826, 0.278070, 0.174372, 0.106734, 0.084874, 0.083340]

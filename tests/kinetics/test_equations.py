@@ -78,7 +78,7 @@ def mm_ode(t, L, k1, k2, I, k3, k4, bmax=1.0):
 
 
 def test_motulsky_mahan_reproduces_the_published_test_vector():
-    # test vector from REFERENCES.md (computed; matches ODE integration to ~1e-11):
+    # test vector from docs/REFERENCES.md (computed; matches ODE integration to ~1e-11):
     # k1=1e8 /M/min, k2=0.1 /min, k3=1e7 /M/min, k4=0.01 /min, L=1 nM, I=10 nM, Bmax=1
     t = np.array([1, 5, 10, 30, 60, 120, 240], float)
     expected = [0.086265, 0.249826, 0.278070, 0.174372, 0.106734, 0.084874, 0.083340]
@@ -125,7 +125,7 @@ def test_motulsky_mahan_rates_are_the_eigenvalues_of_the_scheme_and_obey_vieta()
     k1, k2, k3, k4, L, I = 3e6, 1e-2, 1e5, 1e-4, 2e-9, 3e-7
     kf, ks = fm.motulsky_mahan_rates(L, k1, k2, I, k3, k4)
     ka, kb = k1 * L + k2, k3 * I + k4
-    # KF+KS = KA+KB and KF*KS = k1*L*k4 + k2*k3*I + k2*k4 (Motulsky & Mahan 1984; REFERENCES.md)
+    # KF+KS = KA+KB and KF*KS = k1*L*k4 + k2*k3*I + k2*k4 (Motulsky & Mahan 1984; docs/REFERENCES.md)
     assert kf + ks == pytest.approx(ka + kb, rel=1e-12)
     assert kf * ks == pytest.approx(k1 * L * k4 + k2 * k3 * I + k2 * k4, rel=1e-12)
     # reference: numpy eigenvalues of the linear ODE's matrix d(RL,RI)/dt = M (RL,RI) + c (computed)
@@ -147,7 +147,7 @@ def test_the_level_wise_motulsky_mahan_used_by_the_fits_equals_the_reference_for
 
 def test_a_competitor_slower_than_the_tracer_makes_tracer_binding_overshoot():
     t = np.linspace(0, 240, 2401)
-    b = eq.motulsky_mahan(t, 1e-9, 1e8, 0.1, 1e-8, 1e7, 0.01)  # k4 < k2 (REFERENCES.md, Motulsky & Mahan 1984)
+    b = eq.motulsky_mahan(t, 1e-9, 1e8, 0.1, 1e-8, 1e7, 0.01)  # k4 < k2 (docs/REFERENCES.md, Motulsky & Mahan 1984)
     b_inf = eq.motulsky_mahan_equilibrium(1e-9, 1e8, 0.1, 1e-8, 1e7, 0.01)
     assert b.max() > 3 * b_inf
     fast = eq.motulsky_mahan(t, 1e-9, 1e8, 0.1, 1e-8, 1e8, 1.0)  # k4 > k2: no overshoot

@@ -89,7 +89,7 @@ def test_one_association_curve_with_a_known_koff_gives_kon_from_the_command_line
 
 def test_competition_kinetics_takes_the_tracer_constants_with_units(tmp_path, capsys):
     rng = np.random.default_rng(4)
-    k1, k2 = 1e8 / 60, 0.1 / 60  # REFERENCES.md test vector (Motulsky & Mahan 1984)
+    k1, k2 = 1e8 / 60, 0.1 / 60  # docs/REFERENCES.md test vector (Motulsky & Mahan 1984)
     rows = []
     for c in (0, 3, 10, 30, 100):
         for t in np.linspace(0, 240, 49):

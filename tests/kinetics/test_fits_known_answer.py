@@ -143,7 +143,7 @@ def test_a_curve_at_equilibrium_by_its_first_reading_is_left_out_of_the_kobs_lin
 
 # ------------------------------------------------------------ competition kinetics
 def test_motulsky_mahan_global_fit_recovers_competitor_kon_and_koff():
-    # tracer and competitor of the REFERENCES.md test vector, in SI (Motulsky & Mahan 1984, Mol Pharmacol 25:1)
+    # tracer and competitor of the docs/REFERENCES.md test vector, in SI (Motulsky & Mahan 1984, Mol Pharmacol 25:1)
     k1, k2, k3, k4, L = 1e8 / 60, 0.1 / 60, 1e7 / 60, 0.01 / 60, 1e-9
     conc = np.array([0, 3e-9, 1e-8, 3e-8, 1e-7])
     t = np.tile(np.linspace(0, 240 * 60, 60), conc.size)

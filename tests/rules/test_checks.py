@@ -322,7 +322,7 @@ def engagement(rt_s, stage="candidate", **over) -> pd.DataFrame:
 
 
 def rapid_offset(c0, kd, thr, half_life):
-    """iv bolus C = C0 exp(-ke t) with rapid equilibrium C/(C+KD) (textbook PK; REFERENCES: Bateman/iv bolus)."""
+    """iv bolus C = C0 exp(-ke t) with rapid equilibrium C/(C+KD) (textbook PK; docs/REFERENCES.md §7)."""
     c_thr = kd * thr / (1 - thr)
     return math.log(c0 / c_thr) / (math.log(2) / half_life)
 
