@@ -41,7 +41,7 @@ def _quantity(args, attr, kind):
 
 def _compound(args, prefix=""):
     """(kd, kon, koff) from any two of --kd/--kon/--koff/--residence-time (with a prefix for the tracer)."""
-    from ..kinetics.equations import rate_constants
+    from ..services.simulation import rate_constants
 
     p = prefix.replace("-", "_")
     vals = dict(
@@ -94,7 +94,7 @@ def _emit(args, payload: dict, lines: list[str]) -> int:
 
 # ----------------------------------------------------------------------------- apparent affinity
 def _cmd_apparent(args) -> int:
-    from ..kinetics import assay
+    from ..services.simulation import assay_readout
 
     fmt_name = (args.format or "saturation").strip().lower()
     if fmt_name not in ("saturation", "competition", "competition-binding"):
@@ -116,10 +116,8 @@ def _cmd_apparent(args) -> int:
     elif args.preincubation is not None:
         raise InputError("--preincubation applies to --format competition-binding only")
     fmt = "competition" if competition else "saturation"
-    res = assay.apparent_affinity(kd, koff, t, format=fmt, preincubation=tpre, **tracer_kw)
-    tmin = assay.min_incubation(kd, koff, tolerance=tol, format=fmt, preincubation=tpre, **tracer_kw)
-    thumb = assay.rule_of_thumb_incubation(koff)
-    floor = assay.assay_floor(kon, t, format=fmt, preincubation=tpre, **tracer_kw)
+    out = assay_readout(kd, koff, kon, t, fmt=fmt, preincubation=tpre, tolerance=tol, **tracer_kw)
+    res, tmin, thumb, floor = out["apparent"], out["min_incubation"], out["rule_of_thumb"], out["floor"]
     apparent = float(res.apparent)
     fold = float(res.fold)
     payload = {
@@ -176,7 +174,7 @@ def _cmd_apparent(args) -> int:
 
 # ----------------------------------------------------------------------------- engagement
 def _cmd_engagement(args) -> int:
-    from ..kinetics.engagement import engagement_metrics
+    from ..services.simulation import engagement_metrics
 
     kd, kon, koff = _compound(args)
     route = (args.route or "").strip().lower()
@@ -258,7 +256,7 @@ def _cmd_engagement(args) -> int:
 
 # ----------------------------------------------------------------------------- Ki shift -> RT
 def _cmd_shift(args) -> int:
-    from ..kinetics.assay import residence_time_bounds
+    from ..services.simulation import residence_time_bounds
 
     if args.ratio is None:
         raise InputError("--ratio is required: Ki at the short incubation / Ki at the long one")
