@@ -3,7 +3,7 @@
 Builds an invented 10,000-compound portfolio with the generator of
 ``bench_grade.py`` (same files, same seed), imports it into a fresh SQLite
 file, then measures in a separate Python process (Streamlit's caches are
-process-wide) with :func:`tracker.ui.bench.measure_overview`:
+process-wide) with :func:`overview_render.measure_overview`:
 
 * ``db_read_s``: the one SQL query behind the page's table (the baseline);
 * ``render_warm_s``: a rerun of the page with the database unchanged (queries
@@ -39,7 +39,7 @@ N = 10_000
 
 _CHILD = (
     "import json, sys\n"
-    "from tracker.ui.bench import measure_overview\n"
+    "from overview_render import measure_overview\n"
     "res = measure_overview(sys.argv[1], repeats=int(sys.argv[2]))\n"
     "print('KRT-BENCH-JSON ' + json.dumps(res))\n"
 )
@@ -69,8 +69,8 @@ def build_database(folder: Path, n: int = N) -> tuple[str, float]:
 
 
 def measure(url: str, repeats: int) -> dict:
-    """:func:`tracker.ui.bench.measure_overview` in a child process; its result dict."""
-    env = dict(os.environ, PYTHONPATH=os.pathsep.join(filter(None, [str(ROOT), os.environ.get("PYTHONPATH", "")])))
+    """:func:`overview_render.measure_overview` in a child process; its result dict."""
+    env = dict(os.environ, PYTHONPATH=os.pathsep.join(filter(None, [str(ROOT), str(HERE), os.environ.get("PYTHONPATH", "")])))
     proc = subprocess.run([sys.executable, "-c", _CHILD, url, str(repeats)], capture_output=True, text=True, env=env,
                           cwd=str(ROOT), timeout=1800)
     for line in proc.stdout.splitlines():

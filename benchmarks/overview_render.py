@@ -1,4 +1,4 @@
-"""Benchmark of the risk overview: server-side render time under AppTest against reading the same table.
+"""Benchmark of the risk overview (kept out of the installed package): server-side render time under AppTest against reading the same table.
 
 :func:`measure_overview` is what the project's benchmark entry point calls
 (it prints nothing itself and asserts nothing; goals are judged by whoever
@@ -26,7 +26,7 @@ import time
 from pathlib import Path
 from typing import Any
 
-APP = Path(__file__).resolve().parent / "main.py"
+APP = Path(__file__).resolve().parent.parent / "tracker" / "ui" / "main.py"
 
 
 def _median(fn, repeats: int) -> float:
@@ -43,7 +43,7 @@ def measure_overview(url: str, repeats: int = 5, user: str = "bench") -> dict[st
     import streamlit as st
     from streamlit.testing.v1 import AppTest
 
-    from .data import get_engine, read_compound_summary
+    from tracker.ui.data import get_engine, read_compound_summary
 
     os.environ["KRT_DATABASE_URL"] = url
     os.environ["KRT_USER"] = user
@@ -81,7 +81,7 @@ def measure_overview(url: str, repeats: int = 5, user: str = "bench") -> dict[st
     }
 
 
-if __name__ == "__main__":  # python -m tracker.ui.bench URL
+if __name__ == "__main__":  # python benchmarks/overview_render.py URL
     import sys
 
     result = measure_overview(sys.argv[1] if len(sys.argv) > 1 else os.environ.get("KRT_DATABASE_URL", ""))
