@@ -168,6 +168,26 @@ def second_migrated_engine(backend, tmp_path, _migrated_templates):
     yield from _migrated(backend, tmp_path, _migrated_templates)
 
 
+# ------------------------------------------------------------------ quick local loop
+def _full_run(config) -> bool:
+    return bool(config.getoption("--run-slow") or os.environ.get("KRT_FULL_TESTS") == "1"
+                or os.environ.get("CI", "").lower() in ("1", "true"))
+
+
+def pytest_addoption(parser):
+    parser.addoption("--run-slow", action="store_true", default=False,
+                     help="also run the tests marked slow (statistical coverage, fuzzing, packaging); CI always does")
+
+
+def pytest_collection_modifyitems(config, items):
+    if _full_run(config):
+        return
+    skip = pytest.mark.skip(reason="slow: run with --run-slow (CI runs every test)")
+    for item in items:
+        if "slow" in item.keywords:
+            item.add_marker(skip)
+
+
 # ------------------------------------------------------------------ backend summary
 _PARAM = re.compile(r"\[(.*)\]$")
 

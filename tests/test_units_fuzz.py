@@ -15,6 +15,7 @@ from __future__ import annotations
 import math
 
 import pandas as pd
+import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
@@ -23,6 +24,8 @@ from tracker.io.columns import parse_quantity_column
 from tracker.units import ATOMS, KINDS, KON_MAX, parse_quantity
 
 KIND_NAMES = tuple(KINDS)
+pytestmark = pytest.mark.slow  # hypothesis fuzzing: CI and --run-slow
+
 FUZZ = settings(derandomize=True, database=None, deadline=None, suppress_health_check=[HealthCheck.too_slow, HealthCheck.filter_too_much])
 
 GOOD_UNIT = {"concentration": ["nM", "uM", "µM", "M", "pM", "umol/L"], "time": ["s", "min", "h", "day"],

@@ -48,6 +48,8 @@ from tracker.io.validate import validate_tables
 from tracker.services.backup import count_rows
 from tracker.services.importing import import_path
 
+pytestmark = pytest.mark.slow  # hypothesis fuzzing: CI and --run-slow
+
 FUZZ = settings(derandomize=True, database=None, deadline=None,
                 suppress_health_check=[HealthCheck.too_slow, HealthCheck.filter_too_much, HealthCheck.data_too_large])
 
