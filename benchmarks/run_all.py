@@ -12,6 +12,7 @@ import + grade of 10,000 compounds             pandas ``read_csv`` of the same C
 vectorised simulation of 10,000 compounds      per-compound scipy ``solve_ivp`` loop        >= 100x
 Motulsky-Mahan plate fit (closed form)         the same fit with the ODE model              >= 50x
 portfolio page rerun under AppTest (10,000)    the DB read of the same table                <= 3x
+demo review pack, first build                   grading the same portfolio                   <= 3 s
 peak memory of the 10,000-compound grade       (reported, no baseline)
 =============================================  ========================================  ==========
 
@@ -42,7 +43,7 @@ for _p in (str(ROOT), str(HERE)):
     if _p not in sys.path:
         sys.path.insert(0, _p)
 
-BENCHMARKS = ("grade", "simulation", "fit", "page")
+BENCHMARKS = ("grade", "simulation", "fit", "page", "pack")
 VERSIONED = ("numpy", "scipy", "pandas", "sqlalchemy", "streamlit", "alembic")
 
 
@@ -211,13 +212,24 @@ def bench_page_rows(repeats: int, quick: bool) -> tuple[list[Row], Any]:
     return out, rows
 
 
+def bench_pack_rows(repeats: int, quick: bool) -> tuple[list[Row], Any]:
+    import bench_review_pack
+
+    r = bench_review_pack.run(repeats=1 if quick else repeats)
+    return [Row(f"demo review pack ({r['compounds']} compounds, {r['charts']} charts), first build", _s(r["pack_s"]),
+                "grading the same portfolio", _s(r["grade_s"]), r["ratio"], "slower", None, r["met"], r["repeats"],
+                f"goal: within {r['goal_s']:g} s (absolute)")], r
+
+
 RUNNERS: dict[str, Callable[[int, bool], tuple[list[Row], Any]]] = {
     "grade": bench_grade_rows,
     "simulation": bench_simulation_rows,
     "fit": bench_fit_rows,
     "page": bench_page_rows,
+    "pack": bench_pack_rows,
 }
-TITLES = {"grade": "import + grade", "simulation": "simulation", "fit": "plate fit", "page": "portfolio page"}
+TITLES = {"grade": "import + grade", "simulation": "simulation", "fit": "plate fit", "page": "portfolio page",
+          "pack": "review pack"}
 
 
 def collect(repeats: int = 3, quick: bool = False, only: list[str] | None = None, progress: Callable[[str], None] | None = None) -> Report:

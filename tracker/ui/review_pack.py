@@ -15,11 +15,16 @@ event id and hash), which anchors it to the exact state it was built from.
 from __future__ import annotations
 
 import base64
+import contextvars
 import datetime as dt
+import functools
 import html
-import io
+import json
 import math
-from collections.abc import Iterable
+import os
+import re
+from collections.abc import Callable, Iterable
+from concurrent.futures import ThreadPoolExecutor, as_completed
 from typing import Any
 
 import altair as alt
@@ -33,15 +38,75 @@ from .widgets import rule_title
 MAX_CHART_COMPOUNDS = 60  # beyond this, the pack lists grades and findings without per-compound charts
 
 
+def _svg(spec_json: str) -> str:
+    return _svg_cached(spec_json)
+
+
+@functools.lru_cache(maxsize=512)
+def _svg_cached(spec_json: str) -> str:
+    import vl_convert
+
+    return vl_convert.vegalite_to_svg(json.loads(spec_json))
+
+
+def _spec_json(chart: alt.TopLevelMixin) -> str:
+    # Altair's schema validation costs more than the rendering itself; the charts are
+    # built by tracker.ui.charts and validated by its tests, so the pack skips it.
+    return json.dumps(chart.to_dict(validate=False), sort_keys=True, default=str)
+
+
 def chart_data_uri(chart: alt.TopLevelMixin) -> str:
     """An Altair chart as a ``data:image/svg+xml;base64,...`` URI (rendered offline by vl-convert)."""
-    buf = io.StringIO()
-    chart.save(buf, format="svg")
-    return "data:image/svg+xml;base64," + base64.b64encode(buf.getvalue().encode("utf-8")).decode("ascii")
+    return _data_uri(_svg(_spec_json(chart)))
+
+
+def _data_uri(svg: str) -> str:
+    return "data:image/svg+xml;base64," + base64.b64encode(svg.encode("utf-8")).decode("ascii")
+
+
+class _Charts:
+    """Charts of one pack: placeholders while the HTML is assembled, rendered together at the end.
+
+    vl-convert has a fixed cost per chart; rendering on a small thread pool and
+    caching by specification (a rebuilt pack re-renders only what changed) keeps
+    the demo pack within a few seconds.
+    """
+
+    def __init__(self) -> None:
+        self.specs: list[str] = []
+        self.alts: list[str] = []
+
+    def img(self, chart: alt.TopLevelMixin, alt_text: str) -> str:
+        self.specs.append(_spec_json(chart))
+        self.alts.append(alt_text)
+        return f"\x00chart{len(self.specs) - 1}\x00"
+
+    def render(self, text: str, progress: Callable[[int, int], None] | None = None) -> str:
+        if not self.specs:
+            return text
+        done = 0
+        svgs: list[str] = [""] * len(self.specs)
+        with ThreadPoolExecutor(max_workers=min(4, os.cpu_count() or 1)) as pool:
+            futures = {pool.submit(_svg, spec): i for i, spec in enumerate(self.specs)}
+            for fut in as_completed(futures):
+                svgs[futures[fut]] = fut.result()
+                done += 1
+                if progress:
+                    progress(done, len(self.specs))
+        return _PLACEHOLDER.sub(
+            lambda m: f'<img class="chart" alt="{html.escape(self.alts[int(m.group(1))])}" '
+                      f'src="{_data_uri(svgs[int(m.group(1))])}">', text)
+
+
+_PLACEHOLDER = re.compile("\x00chart(\\d+)\x00")
+_charts: contextvars.ContextVar[_Charts | None] = contextvars.ContextVar("krt_pack_charts", default=None)
 
 
 def _img(chart: alt.TopLevelMixin, alt_text: str) -> str:
-    return f'<img class="chart" alt="{html.escape(alt_text)}" src="{chart_data_uri(chart)}">'
+    pending = _charts.get()
+    if pending is None:
+        return f'<img class="chart" alt="{html.escape(alt_text)}" src="{chart_data_uri(chart)}">'
+    return pending.img(chart, alt_text)
 
 
 def _badge(grade: object) -> str:
@@ -167,12 +232,26 @@ def build_pack(
     author: str = "",
     graded: list[dict[str, Any]] | None = None,
     with_charts: bool = True,
+    progress: Callable[[int, int], None] | None = None,
 ) -> str:
     """The pack as one HTML string (see the module docstring).
 
     ``compounds`` narrows to those names (within ``program`` if given);
-    ``graded`` reuses an already computed grading (the service's list).
+    ``graded`` reuses an already computed grading (the service's list);
+    ``progress(done, total)`` is called as the charts are rendered.
     """
+    pending = _Charts()
+    token = _charts.set(pending)
+    try:
+        text = _assemble(engine, program=program, compounds=compounds, author=author, graded=graded,
+                         with_charts=with_charts)
+    finally:
+        _charts.reset(token)
+    return pending.render(text, progress)
+
+
+def _assemble(engine: Engine, *, program: str | None, compounds: Iterable[str] | None, author: str,
+              graded: list[dict[str, Any]] | None, with_charts: bool) -> str:
     from ..db.audit import chain_head
     from ..db.uow import UnitOfWork
 

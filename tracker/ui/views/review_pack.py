@@ -30,11 +30,13 @@ def render() -> None:
     if with_charts and n > review_pack.MAX_CHART_COMPOUNDS:
         st.caption(f"{n} compounds: charts are included up to {review_pack.MAX_CHART_COMPOUNDS}; pick fewer for charts.")
     if st.button("Build pack", type="primary", key="pack_build", icon=":material/description:"):
-        with st.spinner("Rendering charts ..."):
-            author = ctx.identity.name if ctx.identity else ""
-            graded = data.grades(ctx.url, ctx.version, ctx.program)
-            text = review_pack.build_pack(ctx.engine, program=ctx.program, compounds=picked or None, author=author,
-                                          graded=graded, with_charts=with_charts)
+        bar = st.progress(0.0, text="Gathering the evidence ...")
+        author = ctx.identity.name if ctx.identity else ""
+        graded = data.grades(ctx.url, ctx.version, ctx.program)
+        text = review_pack.build_pack(
+            ctx.engine, program=ctx.program, compounds=picked or None, author=author, graded=graded,
+            with_charts=with_charts, progress=lambda done, total: bar.progress(done / total, text=f"Rendering chart {done} of {total}"))
+        bar.empty()
         label = ", ".join(picked[:3]) + (" …" if len(picked) > 3 else "") if picked else scope
         st.session_state["pack_html"] = (text, file_name(label if not picked else f"{scope}-selection"), label)
     if "pack_html" in st.session_state:
