@@ -34,8 +34,13 @@ ROOT = Path(__file__).resolve().parents[1]
 if str(ROOT) not in sys.path:
     sys.path.insert(0, str(ROOT))
 
-from tracker.kinetics import fitmodels as fm  # noqa: E402
-from tracker.kinetics import fitting as fitting_mod  # noqa: E402
+
+from tracker.kinetics.fitting import engine as fitting_mod  # noqa: E402
+from tracker.kinetics.fitting import common as fitting_common  # noqa: E402
+from tracker.kinetics.fitting import curves as fitting_curves  # noqa: E402
+from tracker.kinetics.fitting import intervals as fitting_iv  # noqa: E402
+from tracker.kinetics import equations as eq  # noqa: E402
+from tracker.kinetics.fitting import fit_competition_kinetics  # noqa: E402
 from tracker.kinetics.equations import motulsky_mahan  # noqa: E402
 
 GOAL = 50.0
@@ -102,8 +107,8 @@ def fit_same(t, y, conc, labels, start, model: str) -> dict:
     Identical procedure for both models: variable projection on (k3, k4) with
     Bmax and baseline solved exactly, the Jacobian at the optimum, covariance intervals.
     """
-    fitting_mod.CURVE_FUNCTIONS.setdefault(ODE_KIND, _cf_ode)
-    curves, idx = fitting_mod._group(t.size, labels, conc)
+    fitting_curves.CURVE_FUNCTIONS.setdefault(ODE_KIND, _cf_ode)
+    curves, idx = fitting_common._group(t.size, labels, conc)
     levels = np.array([c.conc for c in curves])
     P = fitting_mod.Param
     ps = [P("kon", start["kon"], True, *fitting_mod.KON_LIMITS, key=True),
@@ -114,7 +119,7 @@ def fit_same(t, y, conc, labels, start, model: str) -> dict:
     k1, k2, L = TRACER["tracer_kon"], TRACER["tracer_koff"], TRACER["tracer_conc"]
     if model == "closed":
         def shape(p):
-            return fm.motulsky_mahan_levels(t, idx, L, k1, k2, levels, p["kon"], p["koff"])
+            return eq.motulsky_mahan_levels(t, idx, L, k1, k2, levels, p["kon"], p["koff"])
     else:
         conc_pt = levels[idx]
 
@@ -124,13 +129,13 @@ def fit_same(t, y, conc, labels, start, model: str) -> dict:
     fit = fitting_mod._run_vp(prob, ["kon", "koff"], lambda p: np.column_stack([shape(p), ones]),
                               lambda c: {"bmax": c[0], "baseline": c[1]},
                               [[math.log10(start["kon"]), math.log10(start["koff"])]], diff_step=DIFF_STEP)
-    ivs = fitting_mod._intervals(fit, "covariance")
-    return {"kon": fit.value("kon"), "koff": fit.value("koff"), "koff_ci": fitting_mod._ci(fit, ivs, "koff")}
+    ivs = fitting_iv._intervals(fit, "covariance")
+    return {"kon": fit.value("kon"), "koff": fit.value("koff"), "koff_ci": fitting_iv._ci(fit, ivs, "koff")}
 
 
 def _start(t, y, conc):
     """The best point of the starting-value grid that fit_competition_kinetics uses."""
-    grid_k4 = fitting_mod._rate_grid(t, 12)
+    grid_k4 = fitting_common._rate_grid(t, 12)
     ipos = conc[conc > 0]
     grid_ki = np.geomspace(ipos.min() / 300.0, ipos.max() * 10.0, 12)
     ones = np.ones_like(t)
@@ -173,7 +178,7 @@ def run(repeats: int = 3) -> list[dict]:
         est_ode.append(e)
 
     def public():
-        return [fitting_mod.fit_competition_kinetics(t, y, conc, curve=lab, intervals="covariance", **TRACER).estimates
+        return [fit_competition_kinetics(t, y, conc, curve=lab, intervals="covariance", **TRACER).estimates
                 for _, t, y, conc, lab in plate]
 
     t_pub, est_pub = _time(public, max(3, repeats))
@@ -188,7 +193,7 @@ def run(repeats: int = 3) -> list[dict]:
     levels, idx = np.unique(conc, return_inverse=True)
     k1, k2, L = TRACER["tracer_kon"], TRACER["tracer_koff"], TRACER["tracer_conc"]
     n_eval = 20
-    t_ev_cf, _ = _time(lambda: [fm.motulsky_mahan_levels(t, idx, L, k1, k2, levels, k["kon"], k["koff"])
+    t_ev_cf, _ = _time(lambda: [eq.motulsky_mahan_levels(t, idx, L, k1, k2, levels, k["kon"], k["koff"])
                                 for _ in range(n_eval)], repeats)
     t_ev_ode, _ = _time(lambda: [_ode_shape(t, conc, k1, k2, L, k["kon"], k["koff"]) for _ in range(n_eval)], repeats)
     n_points = N_WELLS * N_TIMES

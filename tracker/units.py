@@ -27,6 +27,7 @@ from __future__ import annotations
 
 import math
 import re
+from typing import Any
 from dataclasses import dataclass
 
 from .errors import UnitError
@@ -97,7 +98,7 @@ def _tokens(expr: str) -> list[tuple[str, object]]:
     return out
 
 
-def _parse_expr(tokens: list, i: int, text: str) -> tuple[float, tuple[int, int], int]:
+def _parse_expr(tokens: list[tuple[str, Any]], i: int, text: str) -> tuple[float, tuple[int, int], int]:
     factor, dim = 1.0, (0, 0)
     first = True
     while i < len(tokens):
@@ -120,7 +121,7 @@ def _parse_expr(tokens: list, i: int, text: str) -> tuple[float, tuple[int, int]
     return factor, dim, i
 
 
-def _parse_term(tokens: list, i: int, text: str) -> tuple[float, tuple[int, int], int]:
+def _parse_term(tokens: list[tuple[str, Any]], i: int, text: str) -> tuple[float, tuple[int, int], int]:
     kind, val = tokens[i]
     if kind == "one":
         return 1.0, (0, 0), i + 1
@@ -213,7 +214,7 @@ def parse_quantity(text: str | float | int, kind: str, *, positive: bool = True,
     return Quantity(si=si, unit=unit, kind=kind)
 
 
-def to_si(text: str | float, kind: str, **kw) -> float:
+def to_si(text: str | float, kind: str, **kw: Any) -> float:
     """Shorthand for ``parse_quantity(text, kind).si``."""
     return parse_quantity(text, kind, **kw).si
 

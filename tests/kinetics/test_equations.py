@@ -11,7 +11,6 @@ from scipy.integrate import solve_ivp
 from scipy.optimize import brentq
 
 from tracker.kinetics import equations as eq
-from tracker.kinetics import fitmodels as fm
 
 ODE = dict(method="DOP853", rtol=1e-12, atol=1e-15)
 REL = 1e-6
@@ -33,21 +32,13 @@ def test_association_closed_form_matches_the_integrated_binding_equation(conc):
     np.testing.assert_allclose(eq.association(t, conc, kon, koff, bmax), ref, rtol=REL)
 
 
-def test_one_phase_association_form_is_the_same_curve_as_the_binding_model():
-    kon, koff, conc = 1e6, 1e-3, 5e-9
-    t = np.linspace(0, 4000, 50)
-    kobs = kon * conc + koff  # kobs = kon*L + koff (pseudo-first-order; common practice)
-    amp = conc / (conc + koff / kon)
-    np.testing.assert_allclose(fm.one_phase_association(t, kobs, amp), eq.association(t, conc, kon, koff), rtol=1e-12)
-
-
 def test_dissociation_closed_form_matches_the_integrated_first_order_decay():
     koff, b0, nsb = 4e-4, 800.0, 35.0
     t = np.linspace(1.0, 2e4, 60)
     # reference: scipy solve_ivp of dB/dt = -koff*B, B(0)=B0 (computed); NSB adds a constant
     ref = integrate(lambda _, b: -koff * b, [b0], t)[0] + nsb
     np.testing.assert_allclose(eq.dissociation(t, koff, b0, nsb), ref, rtol=REL)
-    np.testing.assert_allclose(fm.one_phase_decay(t, koff, b0, nsb), ref, rtol=REL)
+    np.testing.assert_allclose(eq.one_phase_decay(t, koff, b0, nsb), ref, rtol=REL)
 
 
 def test_half_life_of_the_dissociation_curve_is_ln2_over_koff():
@@ -62,7 +53,7 @@ def test_two_phase_decay_matches_two_independent_populations_integrated():
     t = np.linspace(1.0, 8000.0, 40)
     # reference: solve_ivp of two independent first-order decays (computed)
     ref = integrate(lambda _, y: [-kf * y[0], -ks * y[1]], [a, b], t).sum(axis=0)
-    np.testing.assert_allclose(fm.two_phase_decay(t, kf, ks, a, b), ref, rtol=REL)
+    np.testing.assert_allclose(eq.two_phase_decay(t, kf, ks, a, b), ref, rtol=REL)
 
 
 # ------------------------------------------------------------ Motulsky & Mahan
@@ -117,13 +108,13 @@ def test_motulsky_mahan_approaches_the_gaddum_equilibrium_at_long_times():
     # Gaddum / Cheng-Prusoff equilibrium: B = Bmax*(L/Kd)/(1 + L/Kd + I/Ki) (Cheng & Prusoff 1973, Biochem
     # Pharmacol 22:3099; Motulsky & Mahan 1984 t -> infinity)
     gaddum = (L / kd) / (1 + L / kd + I / ki)
-    _, ks = fm.motulsky_mahan_rates(L, k1, k2, I, k3, k4)
+    _, ks = eq.motulsky_mahan_rates(L, k1, k2, I, k3, k4)
     assert eq.motulsky_mahan(60.0 / ks, L, k1, k2, I, k3, k4) == pytest.approx(gaddum, rel=1e-9)
 
 
 def test_motulsky_mahan_rates_are_the_eigenvalues_of_the_scheme_and_obey_vieta():
     k1, k2, k3, k4, L, I = 3e6, 1e-2, 1e5, 1e-4, 2e-9, 3e-7
-    kf, ks = fm.motulsky_mahan_rates(L, k1, k2, I, k3, k4)
+    kf, ks = eq.motulsky_mahan_rates(L, k1, k2, I, k3, k4)
     ka, kb = k1 * L + k2, k3 * I + k4
     # KF+KS = KA+KB and KF*KS = k1*L*k4 + k2*k3*I + k2*k4 (Motulsky & Mahan 1984; docs/REFERENCES.md)
     assert kf + ks == pytest.approx(ka + kb, rel=1e-12)
@@ -134,15 +125,16 @@ def test_motulsky_mahan_rates_are_the_eigenvalues_of_the_scheme_and_obey_vieta()
 
 
 @pytest.mark.parametrize("k3,k4", [(1e7 / 60, 0.01 / 60), (1e5, 1e-4), (1e7, 5e-2), (1e7, 1e-3)])
-def test_the_level_wise_motulsky_mahan_used_by_the_fits_equals_the_reference_form(k3, k4):
-    # same closed form, evaluated once per competitor level (including I = 0); reference: equations.motulsky_mahan,
-    # itself checked against solve_ivp above (computed)
+def test_the_level_wise_motulsky_mahan_used_by_the_fits_matches_the_integrated_scheme(k3, k4):
+    # one coefficient set per competitor level (including I = 0), then two exponentials per point
     levels = np.array([0.0, 1e-9, 1e-8, 1e-7, 1e-6])
-    t = np.tile(np.geomspace(1.0, 2e4, 30), levels.size)
+    tt = np.geomspace(1.0, 2e4, 30)
+    t = np.tile(tt, levels.size)
     idx = np.repeat(np.arange(levels.size), 30)
-    ref = eq.motulsky_mahan(t, 2e-9, 1e7, 1e-3, levels[idx], k3, k4, 3.0)
-    got = fm.motulsky_mahan_levels(t, idx, 2e-9, 1e7, 1e-3, levels, k3, k4, 3.0)
-    np.testing.assert_allclose(got, ref, rtol=1e-10)
+    got = eq.motulsky_mahan_levels(t, idx, 2e-9, 1e7, 1e-3, levels, k3, k4, 3.0)
+    # reference: scipy solve_ivp DOP853 rtol 1e-12 of the two-ligand scheme, per level (computed)
+    ref = np.concatenate([3.0 * mm_ode(tt, 2e-9, 1e7, 1e-3, lv, k3, k4) for lv in levels])
+    np.testing.assert_allclose(got, ref, rtol=REL)
 
 
 def test_a_competitor_slower_than_the_tracer_makes_tracer_binding_overshoot():
@@ -171,17 +163,17 @@ def test_jump_dilution_progress_curve_matches_the_integrated_enzyme_scheme(i_pos
     kobs = kon * i_post + koff
     vi = kcat * (et - ei0)
     vs = kcat * et / (1 + i_post / (koff / kon))
-    got = fm.jump_dilution_progress(t, vi, vs, kobs)
+    got = eq.jump_dilution_progress(t, vi, vs, kobs)
     np.testing.assert_allclose(got[1:], ref[1:], rtol=REL)
     # kobs = koff*(1 + I_post/Ki) for a one-step competitive inhibitor (Copeland, from memory)
-    assert fm.jump_dilution_kobs(koff, i_post, koff / kon) == pytest.approx(kobs, rel=1e-12)
+    assert eq.jump_dilution_kobs(koff, i_post, koff / kon) == pytest.approx(kobs, rel=1e-12)
 
 
 def test_a_hundredfold_dilution_from_ten_times_ic50_overstates_koff_by_ten_percent():
     # design: pre-incubate at 10x IC50, dilute 100-fold -> I_post = 0.1 IC50; with IC50 = Kapp,
     # kobs = koff*(1 + 0.1) (Copeland, Evaluation of Enzyme Inhibitors in Drug Discovery; from memory)
     kapp = 2e-9
-    assert fm.jump_dilution_kobs(1e-3, 10 * kapp / 100, kapp) / 1e-3 == pytest.approx(1.10, rel=1e-12)
+    assert eq.jump_dilution_kobs(1e-3, 10 * kapp / 100, kapp) / 1e-3 == pytest.approx(1.10, rel=1e-12)
 
 
 def test_washout_recovery_matches_integrated_dissociation_with_linear_response():
@@ -190,7 +182,7 @@ def test_washout_recovery_matches_integrated_dissociation_with_linear_response()
     koff, rmax, f = 6e-4, 120.0, 0.85
     t = np.linspace(1.0, 1e4, 50)
     theta = integrate(lambda _, y: -koff * y, [f], t)[0]  # reference: solve_ivp (computed)
-    np.testing.assert_allclose(fm.washout_recovery(t, rmax, f, koff), rmax * (1 - theta), rtol=REL)
+    np.testing.assert_allclose(eq.washout_recovery(t, rmax, f, koff), rmax * (1 - theta), rtol=REL)
 
 
 # ------------------------------------------------------------ four-parameter logistic
@@ -216,5 +208,5 @@ def test_cheng_prusoff_converts_ic50_to_ki_and_back():
 
 def test_agonist_response_rises_from_baseline_to_emax_through_the_ec50():
     x = np.array([0.0, 1e-8, 1e3])
-    y = fm.agonist_response(x, 10.0, 90.0, 1e-8, 1.0)
+    y = eq.agonist_response(x, 10.0, 90.0, 1e-8, 1.0)
     np.testing.assert_allclose(y, [10.0, 50.0, 90.0], rtol=1e-9)

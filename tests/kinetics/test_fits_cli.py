@@ -16,7 +16,6 @@ from tracker.cli import main
 from tracker.commands.fit import read_dose_response, read_time_course
 from tracker.errors import InputError
 from tracker.kinetics import equations as eq
-from tracker.kinetics import fitmodels as fm
 
 CONTRACT = {
     "koff_per_s", "koff_ci95_per_s", "kon_per_M_per_s", "kon_ci95_per_M_per_s", "kd_M", "residence_time_s",
@@ -41,7 +40,7 @@ def run_json(capsys, argv):
 def dissociation_csv(tmp_path):
     rng = np.random.default_rng(1)
     t = np.linspace(0, 60, 31)  # minutes
-    y = fm.one_phase_decay(t * 60, 1e-3, 1000.0, 50.0) + rng.normal(0, 10, t.size)
+    y = eq.one_phase_decay(t * 60, 1e-3, 1000.0, 50.0) + rng.normal(0, 10, t.size)
     return write(tmp_path / "diss.csv", "time (min),signal,well", [(a, f"{b:.3f}", "B7") for a, b in zip(t, y)])
 
 
@@ -106,7 +105,7 @@ def test_jump_dilution_uses_the_control_curve_and_warns_that_kobs_is_not_koff(tm
     rng = np.random.default_rng(5)
     t = np.linspace(0, 3600, 40)
     rows = [(a, f"{5 + 2 * a + rng.normal(0, 15):.2f}", "control") for a in t]
-    rows += [(a, f"{fm.jump_dilution_progress(a, 0.1, 2.0, 1e-3, 3) + rng.normal(0, 15):.2f}", "cpd-7") for a in t]
+    rows += [(a, f"{eq.jump_dilution_progress(a, 0.1, 2.0, 1e-3, 3) + rng.normal(0, 15):.2f}", "cpd-7") for a in t]
     d = run_json(capsys, ["fit", "jump-dilution", write(tmp_path / "jd.csv", "time,signal,curve", rows)])
     assert d["koff_per_s"] == pytest.approx(1e-3, rel=0.25)
     assert "kobs-not-koff" in {w["code"] for w in d["warnings"]}
@@ -116,7 +115,7 @@ def test_washout_recovery_reports_koff(tmp_path, capsys):
     rng = np.random.default_rng(6)
     t = np.linspace(0, 120, 41)
     rows = [(a, f"{100 + rng.normal(0, 2):.2f}", "control") for a in t]
-    rows += [(a, f"{fm.washout_recovery(a * 60, 100, 0.9, 5e-4) + rng.normal(0, 2):.2f}", "cpd") for a in t]
+    rows += [(a, f"{eq.washout_recovery(a * 60, 100, 0.9, 5e-4) + rng.normal(0, 2):.2f}", "cpd") for a in t]
     d = run_json(capsys, ["fit", "washout-recovery", write(tmp_path / "wo.csv", "time,signal,curve", rows),
                           "--time-unit", "min"])
     assert d["koff_per_s"] == pytest.approx(5e-4, rel=0.1)
@@ -140,7 +139,7 @@ def test_insurmountability_reports_the_fraction_of_maximal_response(tmp_path, ca
     rows = []
     for label, emax in (("control", 100), ("antagonist 30 nM", 50)):
         for x in np.geomspace(1e-10, 1e-4, 13):
-            rows.append((x, f"{fm.agonist_response(x, 0, emax, 1e-8, 1) + rng.normal(0, 2):.2f}", label))
+            rows.append((x, f"{eq.agonist_response(x, 0, emax, 1e-8, 1) + rng.normal(0, 2):.2f}", label))
     path = write(tmp_path / "ins.csv", "concentration,signal,curve", rows)
     d = run_json(capsys, ["fit", "insurmountability", path])
     assert d["max_response_fraction"] == pytest.approx(0.5, rel=0.1)

@@ -18,7 +18,6 @@ from scipy.optimize import brentq
 
 from tracker.errors import FitError
 from tracker.kinetics import equations as eq
-from tracker.kinetics import fitmodels as fm
 from tracker.kinetics.fitting import (
     fit_association,
     fit_competition_kinetics,
@@ -44,7 +43,7 @@ def assert_recovered(result, name, truth, rel):
 # ------------------------------------------------------------ dissociation
 def test_dissociation_recovers_koff_residence_time_and_half_life():
     t = np.linspace(0, 3600, 40)
-    y = fm.one_phase_decay(t, 1e-3, 1000.0, 50.0) + rng().normal(0, 10, t.size)
+    y = eq.one_phase_decay(t, 1e-3, 1000.0, 50.0) + rng().normal(0, 10, t.size)
     r = fit_dissociation(t, y)
     assert_recovered(r, "koff", 1e-3, 0.10)
     assert_recovered(r, "residence_time", 1000.0, 0.10)  # RT = 1/koff (Copeland, Pompliano & Meek 2006)
@@ -56,7 +55,7 @@ def test_dissociation_recovers_koff_residence_time_and_half_life():
 def test_replicate_dissociation_curves_share_koff_and_keep_their_own_amplitude():
     t = np.tile(np.linspace(0, 5400, 30), 3)
     span = np.repeat([800.0, 1000.0, 1200.0], 30)
-    y = fm.one_phase_decay(t, 5e-4, span, 20.0) + rng(7).normal(0, 12, t.size)
+    y = eq.one_phase_decay(t, 5e-4, span, 20.0) + rng(7).normal(0, 12, t.size)
     r = fit_dissociation(t, y, np.repeat(["r1", "r2", "r3"], 30))
     assert_recovered(r, "koff", 5e-4, 0.10)
     assert r.estimates["span[r3]"] == pytest.approx(1200, rel=0.05)
@@ -66,7 +65,7 @@ def test_replicate_dissociation_curves_share_koff_and_keep_their_own_amplitude()
 def test_dissociation_with_little_decay_reports_residence_time_as_a_lower_bound():
     t = np.linspace(0, 3600, 40)
     true_rt = 5e4  # 7% decays in the hour
-    y = fm.one_phase_decay(t, 1 / true_rt, 1000.0, 0.0) + rng(11).normal(0, 8, t.size)
+    y = eq.one_phase_decay(t, 1 / true_rt, 1000.0, 0.0) + rng(11).normal(0, 8, t.size)
     r = fit_dissociation(t, y)
     assert "rt-lower-bound" in r.warning_codes
     bound = r.estimates["residence_time_lower_bound"]
@@ -77,7 +76,7 @@ def test_dissociation_with_little_decay_reports_residence_time_as_a_lower_bound(
 
 def test_biphasic_dissociation_is_flagged_and_its_two_rates_recovered():
     t = np.linspace(0, 7200, 60)
-    y = fm.two_phase_decay(t, 8e-3, 2e-4, 500.0, 500.0) + rng(5).normal(0, 5, t.size)
+    y = eq.two_phase_decay(t, 8e-3, 2e-4, 500.0, 500.0) + rng(5).normal(0, 5, t.size)
     r = fit_dissociation(t, y)
     assert "biphasic" in r.warning_codes
     two = r.extras["two_phase"]
@@ -171,7 +170,7 @@ def test_jump_dilution_recovers_koff_with_the_control_fixing_the_steady_state_ra
     t = np.linspace(0, 3600, 60)
     noise = rng(21).normal(0, 15, 120)
     control = 5 + 2.0 * t + noise[:60]
-    inhibited = fm.jump_dilution_progress(t, 0.1, 2.0, 1e-3, 3.0) + noise[60:]
+    inhibited = eq.jump_dilution_progress(t, 0.1, 2.0, 1e-3, 3.0) + noise[60:]
     r = fit_jump_dilution(np.r_[t, t], np.r_[control, inhibited], ["control"] * 60 + ["cpd"] * 60)
     assert_recovered(r, "koff", 1e-3, 0.25)
     assert r.estimates["vs"] == pytest.approx(2.0, rel=0.02)
@@ -209,7 +208,7 @@ def test_washout_recovery_recovers_koff_and_the_blocked_fraction():
     t = np.linspace(0, 7200, 50)
     noise = rng(29).normal(0, 2, 100)
     r = fit_washout_recovery(
-        np.r_[t, t], np.r_[100 + noise[:50], fm.washout_recovery(t, 100.0, 0.9, 5e-4) + noise[50:]],
+        np.r_[t, t], np.r_[100 + noise[:50], eq.washout_recovery(t, 100.0, 0.9, 5e-4) + noise[50:]],
         ["control"] * 50 + ["cpd"] * 50,
     )
     assert_recovered(r, "koff", 5e-4, 0.10)
@@ -253,7 +252,7 @@ def test_ki_shift_of_a_fast_binder_is_one_within_its_interval():
 def test_insurmountability_recovers_the_fraction_of_maximal_response_left():
     dose = np.tile(np.geomspace(1e-10, 1e-4, 13), 2)
     lab = np.repeat(["control", "antagonist 10 nM"], 13)
-    y = np.where(lab == "control", fm.agonist_response(dose, 5, 100, 1e-8, 1.0), fm.agonist_response(dose, 5, 43, 3e-8, 1.0))
+    y = np.where(lab == "control", eq.agonist_response(dose, 5, 100, 1e-8, 1.0), eq.agonist_response(dose, 5, 43, 3e-8, 1.0))
     y = y + rng(41).normal(0, 2, y.size)
     r = fit_insurmountability(dose, y, lab)
     assert_recovered(r, "max_response_fraction", (43 - 5) / (100 - 5), 0.10)
@@ -263,7 +262,7 @@ def test_insurmountability_recovers_the_fraction_of_maximal_response_left():
 def test_a_small_but_significant_depression_is_not_called_insurmountable():
     dose = np.tile(np.geomspace(1e-10, 1e-4, 13), 2)
     lab = np.repeat(["control", "antagonist"], 13)
-    y = np.where(lab == "control", fm.agonist_response(dose, 0, 100, 1e-8, 1.0), fm.agonist_response(dose, 0, 95, 1e-7, 1.0))
+    y = np.where(lab == "control", eq.agonist_response(dose, 0, 100, 1e-8, 1.0), eq.agonist_response(dose, 0, 95, 1e-7, 1.0))
     r = fit_insurmountability(dose, y + rng(59).normal(0, 0.5, y.size), lab)
     assert r.ci95["max_response_fraction"][1] < 1.0
     assert "emax-slightly-depressed" in r.warning_codes and "insurmountable" not in r.warning_codes
@@ -272,7 +271,7 @@ def test_a_small_but_significant_depression_is_not_called_insurmountable():
 def test_a_surmountable_shift_keeps_the_full_maximal_response():
     dose = np.tile(np.geomspace(1e-10, 1e-3, 15), 2)
     lab = np.repeat(["control", "antagonist"], 15)
-    y = np.where(lab == "control", fm.agonist_response(dose, 0, 100, 1e-8, 1.0), fm.agonist_response(dose, 0, 100, 1e-6, 1.0))
+    y = np.where(lab == "control", eq.agonist_response(dose, 0, 100, 1e-8, 1.0), eq.agonist_response(dose, 0, 100, 1e-6, 1.0))
     r = fit_insurmountability(dose, y + rng(43).normal(0, 2, y.size), lab)
     assert_recovered(r, "max_response_fraction", 1.0, 0.10)
     assert r.estimates["dose_ratio[antagonist]"] == pytest.approx(100, rel=0.25)  # Schild: a pure shift
@@ -282,7 +281,7 @@ def test_a_surmountable_shift_keeps_the_full_maximal_response():
 # ------------------------------------------------------------ intervals
 def test_profile_and_covariance_intervals_agree_when_koff_is_well_determined():
     t = np.linspace(0, 3600, 40)
-    y = fm.one_phase_decay(t, 1e-3, 1000.0, 50.0) + rng(47).normal(0, 10, t.size)
+    y = eq.one_phase_decay(t, 1e-3, 1000.0, 50.0) + rng(47).normal(0, 10, t.size)
     cov = fit_dissociation(t, y, intervals="covariance", check_biphasic=False)
     prof = fit_dissociation(t, y, intervals="profile", check_biphasic=False)
     assert cov.ci_kinds["koff"] == "covariance" and prof.ci_kinds["koff"] == "profile"
@@ -300,7 +299,7 @@ def test_a_koff_stuck_at_its_fitting_limit_gets_an_open_profile_interval():
 
 def test_a_fit_that_cannot_converge_is_refused_with_a_fit_error():
     t = np.linspace(0, 3600, 40)
-    y = fm.one_phase_decay(t, 1e-3, 1000.0, 50.0) + rng().normal(0, 10, t.size)
+    y = eq.one_phase_decay(t, 1e-3, 1000.0, 50.0) + rng().normal(0, 10, t.size)
     with pytest.raises(FitError, match="did not converge"):
         fit_dissociation(t, y, max_nfev=1)
     loose = fit_dissociation(t, y, max_nfev=1, strict=False, check_biphasic=False)

@@ -9,7 +9,6 @@ import numpy as np
 import pytest
 
 from tracker.kinetics import equations as eq
-from tracker.kinetics import fitmodels as fm
 from tracker.kinetics.fitting import (
     SCHEMA_VERSION,
     FitResult,
@@ -23,7 +22,7 @@ from tracker.kinetics.fitting import (
 @pytest.fixture(scope="module")
 def diss():
     t = np.linspace(0, 3600, 40)
-    y = fm.one_phase_decay(t, 1e-3, 1000.0, 50.0) + np.random.default_rng(5).normal(0, 10, t.size)
+    y = eq.one_phase_decay(t, 1e-3, 1000.0, 50.0) + np.random.default_rng(5).normal(0, 10, t.size)
     return fit_dissociation(t, y)
 
 
