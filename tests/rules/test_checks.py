@@ -76,7 +76,7 @@ def test_the_six_hour_residence_time_compound_reads_about_4_nM_after_one_hour():
 def test_the_finding_gives_the_shift_the_corrected_affinity_and_the_minimum_incubation_in_readable_units():
     f = check_affinity_underestimate(potency()).iloc[0]
     assert f["rule"] == "affinity-underestimate"
-    assert "4.6×" in f["message"] and "6 h" in f["message"] and "4.6 nM" in f["message"] and "60 min" in f["message"]
+    assert "4.62×" in f["message"] and "6 h" in f["message"] and "4.6 nM" in f["message"] and "60 min" in f["message"]
     assert "12 h" in f["prompt"] and f["prompt"].startswith("Re-run bind with ≥")
     assert f["caution"] == CAUTION_AFFINITY and "mechanism-based toxicity" in f["caution"]
     assert "not dosing advice" in f["caution"]

@@ -45,7 +45,7 @@ def test_every_axis_title_names_its_unit():
     kmap = charts.kinetic_map_chart(pd.DataFrame({"compound": ["A"], "series": ["s"], "stage": ["hit"], "grade_label": [theme.grade_label("high")],
                                                   "kon": [1e6], "koff": [1e-4], "rt_text": ["2.8 h"], "kd_nM": [0.1]}),
                                     floor_kd_M=2e-10, incubation_s=3600)
-    units = {"(h, log scale)", "(nM, log scale)", "(h)", "(% occupied)", "(1/s, log scale)", "(1/(M·s), log scale)"}
+    units = {"(h, log scale)", "(nM, log scale)", "(h)", "(% occupied)", "(/s, log scale)", "(/M/s, log scale)"}
     for chart in (aff, eng, kmap):
         titles = _titles(chart)
         assert titles, chart

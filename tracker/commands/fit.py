@@ -52,7 +52,12 @@ import pandas as pd
 
 from ..domain import FIT_METHODS as METHODS
 from ..errors import FitError, InputError, KrtError, UnitError
-from ..units import fmt_conc, fmt_rate1, fmt_rate2, fmt_time, parse_quantity, unit_factor
+from ..fmt import conc as fmt_conc
+from ..fmt import duration as fmt_time
+from ..fmt import rate1 as fmt_rate1
+from ..fmt import pct as fmt_pct
+from ..fmt import rate2 as fmt_rate2
+from ..units import parse_quantity, unit_factor
 
 TIME_UNITS = ("s", "min", "h")
 CONC_UNITS = ("M", "mM", "uM", "nM", "pM")
@@ -349,7 +354,7 @@ def _fmt(name: str, v: float) -> str:
     if base in ("residence_time", "half_life", "residence_time_lower_bound"):
         return fmt_time(v)
     if base in ("fraction", "max_response_fraction"):
-        return f"{100 * v:.3g}%"
+        return fmt_pct(v)
     return f"{v:.4g}"
 
 

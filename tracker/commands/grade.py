@@ -22,7 +22,7 @@ from ..db import migrate
 from ..db.session import open_engine
 from ..errors import InputError
 
-GRADE_LABEL = {"high": "HIGH", "moderate": "moderate", "low": "low", "clear": "clear"}
+from ..fmt import GRADE_LABELS as GRADE_LABEL  # the same words the dashboard shows
 
 
 @contextmanager
@@ -93,13 +93,13 @@ def print_report(records: list[dict], details: bool = True) -> None:
         return
     wc = max(8, *(len(r["compound"]) for r in records))
     wp = max(7, *(len(r["program"]) for r in records))
-    print(f"{'compound':<{wc}}  {'program':<{wp}}  {'stage':<17}  {'grade':<8}  findings")
+    print(f"{'compound':<{wc}}  {'program':<{wp}}  {'stage':<17}  {'grade':<13}  findings")
     for r in records:
         rules = ", ".join(dict.fromkeys(f["rule"] for f in r["findings"]))
-        print(f"{r['compound']:<{wc}}  {r['program']:<{wp}}  {r['stage']:<17}  {GRADE_LABEL[r['grade']]:<8}  {len(r['findings'])}"
+        print(f"{r['compound']:<{wc}}  {r['program']:<{wp}}  {r['stage']:<17}  {GRADE_LABEL[r['grade']]:<13}  {len(r['findings'])}"
               + (f"  ({rules})" if rules else ""))
     counts = {g: sum(1 for r in records if r["grade"] == g) for g in GRADE_LABEL}
-    print(f"\n{len(records)} compound(s): " + ", ".join(f"{n} {g}" for g, n in counts.items()))
+    print(f"\n{len(records)} compound(s): " + ", ".join(f"{n} {GRADE_LABEL[g].lower()}" for g, n in counts.items()))
     if not details:
         return
     cautions: list[str] = []

@@ -19,7 +19,10 @@ import json
 import math
 
 from ..errors import InputError, KrtError
-from ..units import fmt_conc, fmt_time, parse_quantity
+from ..fmt import conc as fmt_conc
+from ..fmt import duration as fmt_time
+from ..fmt import rate1, rate2
+from ..units import parse_quantity
 
 CAUTION = (
     "Caution: simulations are decision support, not dosing advice; an underestimated affinity can mean "
@@ -147,7 +150,7 @@ def _cmd_apparent(args) -> int:
         payload["apparent_kd_M"] = apparent
     what = "Ki" if competition else "KD"
     lines = [
-        f"Compound: KD {fmt_conc(kd)}, residence time {fmt_time(1.0 / koff)} (kon {kon:.3g} /M/s, koff {koff:.3g} /s)",
+        f"Compound: KD {fmt_conc(kd)}, residence time {fmt_time(1.0 / koff)} (kon {rate2(kon)}, koff {rate1(koff)})",
         f"Format: {fmt}"
         + (f", tracer KD {fmt_conc(tracer_kw['tracer_kd'])} at {fmt_conc(tracer_kw['tracer_conc'])}" if competition else "")
         + (f", pre-incubation {fmt_time(tpre)}" if competition and tpre > 0 else ""),
@@ -306,7 +309,7 @@ def _cmd_shift(args) -> int:
     }
     lines = [
         f"Ki shift {ratio:g}x between {fmt_time(t_s)} and {fmt_time(t_l)} (tolerance {tol:g}-fold), "
-        f"Ki at {fmt_time(t_l)} {fmt_conc(ki)}, kon {kon_lo:.3g}-{kon_hi:.3g} /M/s",
+        f"Ki at {fmt_time(t_l)} {fmt_conc(ki)}, kon {rate2(kon_lo)} to {rate2(kon_hi)}",
     ]
     if consistent:
         hi_txt = "unbounded" if math.isinf(high) else fmt_time(high)

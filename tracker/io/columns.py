@@ -16,6 +16,7 @@ import numpy as np
 import pandas as pd
 
 from ..errors import UnitError
+from ..fmt import rate2
 from ..units import _NUMBER as _NUMBER_RE  # the scalar parser's own pattern
 from ..units import KON_MAX, KON_WARN, unit_factor
 
@@ -124,7 +125,7 @@ def parse_quantity_column(
     if kind == "rate2":
         for j in np.flatnonzero(keep & (vals > KON_WARN)):
             v = vals[j]
-            out.warnings.append((int(ok_idx[j]), f"kon {v:.3g} /M/s is above ~1e9 /M/s, near the diffusion limit; check the measurement"))
+            out.warnings.append((int(ok_idx[j]), f"kon {rate2(v)} is above ~1e9 /M/s, near the diffusion limit; check the measurement"))
     out.errors.sort()
     return out
 
@@ -135,7 +136,7 @@ def _check_value(v: float, kind: str, positive: bool, low: float | None, high: f
     if kind == "fraction" and not 0 <= v <= 1.5:
         return f"fraction {raw!r} is outside 0-1"
     if kind == "rate2" and v > KON_MAX:
-        return f"kon {v:.3g} /M/s exceeds the diffusion limit (~1e10 /M/s, Smoluchowski); check the unit"
+        return f"kon {rate2(v)} exceeds the diffusion limit (~1e10 /M/s, Smoluchowski); check the unit"
     if low is not None and v < low:
         return f"{raw!r} is below the allowed minimum {low:g}"
     if high is not None and v > high:

@@ -38,7 +38,9 @@ import pandas as pd
 from ..domain import STAGES
 from ..kinetics.assay import apparent_affinity, assay_floor, min_incubation, residence_time_bounds, saturation_fold
 from ..kinetics.engagement import engagement_metrics
-from ..units import fmt_conc, fmt_time
+from .. import fmt as _fmt
+from ..fmt import conc as fmt_conc
+from ..fmt import duration as fmt_time
 
 __all__ = [
     "FINDING_COLUMNS",
@@ -142,18 +144,12 @@ def next_stage(stage: str) -> str:
 
 
 def fmt_fold(x: float | None) -> str:
-    """``12×``, ``4.6×``, ``1.3×``."""
-    if x is None or not math.isfinite(x):
-        return "n/a"
-    return f"{x:.0f}×" if x >= 10 else f"{x:.2g}×"
+    """``43×``, ``4.63×`` (:func:`tracker.fmt.fold`)."""
+    return _fmt.fold(x)
 
 
-def _fmt_ci(lo, hi, fmt) -> str:
-    if lo is None or hi is None or not (math.isfinite(lo) or math.isfinite(hi)):
-        return ""
-    left = fmt(lo) if math.isfinite(lo) else "0"
-    right = fmt(hi) if math.isfinite(hi) else "∞"
-    return f" (95% interval {left}–{right})"
+def _fmt_ci(lo, hi, fn) -> str:
+    return _fmt.interval(lo, hi, fn)
 
 
 def _plain(v: Any) -> Any:
@@ -426,7 +422,7 @@ def check_affinity_underestimate(
         msg = (
             f"{r.assay} {r.readout} {fmt_conc(r.value_M)} after {fmt_time(t[i])} is predicted to read "
             f"{at_least}{fmt_fold(f)} too weak{_fmt_ci(lo, hi, fmt_fold)} for residence time {rt_text}: the incubation is "
-            f"{t[i] / rt[i]:.2g}× RT (rule ≥ {mult[i]:g}× RT); equilibrium {r.readout} ≈ {fmt_conc(r.corrected_affinity_M)}; "
+            f"{fmt_fold(t[i] / rt[i])} RT (rule ≥ {mult[i]:g}× RT); equilibrium {r.readout} ≈ {fmt_conc(r.corrected_affinity_M)}; "
             f"reads within {tol[i]:g}-fold only after {fmt_time(min_inc[k])}{note}"
         )
         prompt = (
@@ -522,10 +518,10 @@ def check_ki_shift(
         if np.isfinite(rt_lo[k]):
             span = f"{fmt_time(rt_lo[k])} to {fmt_time(rt_hi[k])}" if np.isfinite(rt_hi[k]) else f"≥ {fmt_time(rt_lo[k])}"
             if alone[k]:
-                rt_text = (f"; residence time {span} from the shift alone (no kon in {k_lo[k]:.0e}–{k_hi[k]:.0e} /M/s fits "
+                rt_text = (f"; residence time {span} from the shift alone (no kon in {_fmt.sig(k_lo[k])}–{_fmt.rate2(k_hi[k])} fits "
                            "this potency too: kon may be unusual or the long read not at equilibrium)")
             else:
-                rt_text = f"; consistent with residence time {span} (kon {k_lo[k]:.0e}–{k_hi[k]:.0e} /M/s)"
+                rt_text = f"; consistent with residence time {span} (kon {_fmt.sig(k_lo[k])}–{_fmt.rate2(k_hi[k])})"
         eq = f"; rank on the {fmt_time(t_l[k])} value ({fmt_conc(v_l[k])}) or tighter" if np.isfinite(v_l[k]) and np.isfinite(t_l[k]) else ""
         msg = (
             f"likely underestimated: {r.assay} reads {fmt_fold(ratio[idx][k])} weaker{when}"
@@ -582,7 +578,7 @@ def check_insurmountability(
     severity = severity_from(level, sel["stage"].to_numpy(), likely=True)
     lo = _num(sel, "max_response_fraction_low")
     hi = _num(sel, "max_response_fraction_high")
-    pct = lambda x: f"{100 * x:.0f}%"  # noqa: E731
+    pct = _fmt.pct
     records = []
     names = ["compound_id", "stage", "assay", "source", "potency_id", "time_course_id", "kinetic_measurement_id"]
     for k, r in enumerate(_rows(sel, names)):
@@ -659,7 +655,7 @@ def check_assay_floor(rows: pd.DataFrame, *, floor_factor=2.0) -> pd.DataFrame:
         how = "tracer competition" if comp[i] else "ln2/(kon·t)"
         msg = (
             f"likely underestimated: {r.assay} {r.readout} {fmt_conc(value[i])} after {fmt_time(t[i])} sits at "
-            f"{value[i] / floor[i]:.2g}× the assay floor {fmt_conc(floor[i])} ({how}, kon {kon[i]:.2g} /M/s, "
+            f"{fmt_fold(value[i] / floor[i])} the assay floor {fmt_conc(floor[i])} ({how}, kon {_fmt.rate2(kon[i])}, "
             f"{r.kon_source}): a slow dissociator cannot read tighter at this incubation, so the true affinity may be "
             "much tighter; residence time not measured"
         )
@@ -845,7 +841,7 @@ def check_duration_mismatch(frame: pd.DataFrame, *, default_engagement_threshold
                 f"{route[i]} {species} PK (free Cmax {fmt_conc(cmax[i])}, t½ {fmt_time(hl[i])}"
                 + (f", tmax {fmt_time(tmax[i])}" if route[i] == "oral" else "")
                 + f"), RT {fmt_time(1 / koff[i])}, KD {fmt_conc(koff[i] / kon[i])} ({kd_source}), "
-                f"threshold {100 * thr[i]:.0f}%" + ("" if np.isfinite(thr_prog[i]) else " (default; the program sets none)")
+                f"threshold {_fmt.pct(thr[i])}" + ("" if np.isfinite(thr_prog[i]) else " (default; the program sets none)")
             )
             caution = CAUTION_OFFSET if f["limit"] == "offset_max" else CAUTION_NOT_DOSING_ADVICE
             records.append({
@@ -876,7 +872,7 @@ def _limit_failures(met, thr, onset_max, dur_min, off_max, tau) -> list[dict]:
     peak, trough = met["peak_occupancy"], met["trough_occupancy"]
     never = ~np.isfinite(onset)
     out = []
-    pct = lambda x: f"{100 * x:.0f}%"  # noqa: E731
+    pct = _fmt.pct
     for j in range(onset.size):
         if never[j]:
             out.append({"row": j, "limit": "engagement_threshold", "value": peak[j], "limit_value": thr[j],
@@ -886,15 +882,15 @@ def _limit_failures(met, thr, onset_max, dur_min, off_max, tau) -> list[dict]:
         if np.isfinite(onset_max[j]) and onset[j] > onset_max[j]:
             out.append({"row": j, "limit": "onset_max", "value": onset[j], "limit_value": onset_max[j],
                         "excess": onset[j] - onset_max[j],
-                        "text": f"onset {fmt_time(onset[j])} exceeds the {fmt_time(onset_max[j])} limit by {fmt_time(onset[j] - onset_max[j])} ({onset[j] / onset_max[j]:.2g}×)"})
+                        "text": f"onset {fmt_time(onset[j])} exceeds the {fmt_time(onset_max[j])} limit by {fmt_time(onset[j] - onset_max[j])} ({fmt_fold(onset[j] / onset_max[j])})"})
         if np.isfinite(dur_min[j]) and dur[j] < dur_min[j]:
             out.append({"row": j, "limit": "duration_min", "value": dur[j], "limit_value": dur_min[j],
                         "excess": dur[j] - dur_min[j],
-                        "text": f"time above threshold {fmt_time(dur[j])} falls {fmt_time(dur_min[j] - dur[j])} short of the {fmt_time(dur_min[j])} minimum ({dur[j] / dur_min[j]:.2g}×) after one dose"})
+                        "text": f"time above threshold {fmt_time(dur[j])} falls {fmt_time(dur_min[j] - dur[j])} short of the {fmt_time(dur_min[j])} minimum ({fmt_fold(dur[j] / dur_min[j])}) after one dose"})
         if np.isfinite(off_max[j]) and offset[j] > off_max[j]:
             out.append({"row": j, "limit": "offset_max", "value": offset[j], "limit_value": off_max[j],
                         "excess": offset[j] - off_max[j],
-                        "text": f"offset {fmt_time(offset[j])} after dosing exceeds the {fmt_time(off_max[j])} limit by {fmt_time(offset[j] - off_max[j])} ({offset[j] / off_max[j]:.2g}×)"})
+                        "text": f"offset {fmt_time(offset[j])} after dosing exceeds the {fmt_time(off_max[j])} limit by {fmt_time(offset[j] - off_max[j])} ({fmt_fold(offset[j] / off_max[j])})"})
         gap_allowed = np.isfinite(dur_min[j]) and dur_min[j] < tau[j]
         if np.isfinite(tau[j]) and np.isfinite(trough[j]) and trough[j] < thr[j] and not gap_allowed:
             out.append({"row": j, "limit": "dosing_interval", "value": trough[j], "limit_value": thr[j],
@@ -928,4 +924,4 @@ def _intervals(fails, frame, ci, kon, route, cmax, tmax, hl, thr, tau) -> None:
         if key.endswith("_s"):
             f["ci_text"] = _fmt_ci(lo, hi, fmt_time)
         else:
-            f["ci_text"] = _fmt_ci(lo, hi, lambda x: f"{100 * x:.0f}%")
+            f["ci_text"] = _fmt_ci(lo, hi, _fmt.pct)

@@ -45,6 +45,7 @@ from typing import Any, Mapping
 import numpy as np
 import pandas as pd
 
+from .. import fmt
 from ..domain import STAGES
 from .checks import (
     FINDING_COLUMNS,
@@ -524,7 +525,7 @@ def _evidence_text(likely: pd.DataFrame | None) -> dict:
         if kind == "ki-shift":
             head, item = "Ki shift", f"{fmt_fold(data.get('ki_shift_ratio'))} in {data.get('assay')}"
         elif kind == "insurmountable":
-            head, item = "insurmountable", f"maximum {100 * data.get('max_response_fraction', math.nan):.0f}% in {data.get('assay')}"
+            head, item = "insurmountable", f"maximum {fmt.pct(data.get('max_response_fraction'))} in {data.get('assay')}"
         else:
             head, item = "potency at the assay floor", str(data.get("assay"))
         items = out.setdefault(cid, {}).setdefault(head, [])

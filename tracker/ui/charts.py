@@ -318,8 +318,8 @@ def kinetic_map_chart(points: pd.DataFrame, *, floor_kd_M: float | None = None, 
         koff_lo, koff_hi = pts["koff"].min() / 5, pts["koff"].max() * 5
     kon_lo, kon_hi = 10 ** math.floor(math.log10(kon_lo)), 10 ** math.ceil(math.log10(kon_hi))
     koff_lo, koff_hi = 10 ** math.floor(math.log10(koff_lo)), 10 ** math.ceil(math.log10(koff_hi))
-    x_title = "koff (1/s, log scale)"
-    y_title = "kon (1/(M·s), log scale)"
+    x_title = "koff (/s, log scale)"
+    y_title = "kon (/M/s, log scale)"
     xs = alt.Scale(type="log", domain=[koff_lo, koff_hi])
     ys = alt.Scale(type="log", domain=[kon_lo, kon_hi])
     decades = lambda lo, hi: [10.0 ** k for k in range(round(math.log10(lo)), round(math.log10(hi)) + 1)]  # noqa: E731
@@ -364,28 +364,32 @@ def kinetic_map_chart(points: pd.DataFrame, *, floor_kd_M: float | None = None, 
             x=alt.X("koff:Q", scale=xs, title=x_title, axis=x_axis), tooltip=[alt.Tooltip("line:N", title="Incubation rule of thumb")]))
         layers.append(alt.Chart(rule).mark_text(align="left", baseline="top", dx=4, dy=4, fontSize=11, color=theme.FLOOR,
                                                 font=theme.FONT).encode(x=alt.X("koff:Q", scale=xs), y=alt.value(4), text="line:N"))
+    from ..fmt import conc, rate1, rate2
+
+    pts = pts.assign(kon_text=[rate2(v) for v in pts["kon"]], koff_text=[rate1(v) for v in pts["koff"]],
+                     kd_text=[conc(v * 1e-9) for v in pts["kd_nM"]])
     layers.append(alt.Chart(pts).mark_point(size=110, filled=True, opacity=0.95, stroke="white", strokeWidth=0.8).encode(
         x=alt.X("koff:Q", scale=xs, title=x_title, axis=x_axis), y=alt.Y("kon:Q", scale=ys, title=y_title, axis=y_axis),
         color=alt.Color("grade_label:N", scale=grade_colour_scale(), title="Grade"),
         shape=alt.Shape("series:N", title="Series"),
         tooltip=[alt.Tooltip("compound:N", title="Compound"), alt.Tooltip("series:N", title="Series"),
                  alt.Tooltip("stage:N", title="Stage"), alt.Tooltip("grade_label:N", title="Grade"),
-                 alt.Tooltip("kon:Q", title="kon (1/(M·s))", format=".3g"), alt.Tooltip("koff:Q", title="koff (1/s)", format=".3g"),
-                 alt.Tooltip("rt_text:N", title="Residence time"), alt.Tooltip("kd_nM:Q", title="KD (nM)", format=".3g")],
+                 alt.Tooltip("kon_text:N", title="kon"), alt.Tooltip("koff_text:N", title="koff"),
+                 alt.Tooltip("rt_text:N", title="Residence time"), alt.Tooltip("kd_text:N", title="KD")],
     ))
     return _base(alt.layer(*layers), height=MAP_HEIGHT)
 
 
 def _conc_text(m: float) -> str:
-    from ..units import fmt_conc
+    from ..fmt import conc
 
-    return fmt_conc(m, 3)
+    return conc(m)
 
 
 def _rt_text(s: float) -> str:
-    from ..units import fmt_time
+    from ..fmt import duration
 
-    return fmt_time(s, 2)
+    return duration(s)
 
 
 __all__ = [

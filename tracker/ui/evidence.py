@@ -232,7 +232,9 @@ def fit_charts(fits: list[dict]) -> list[tuple[str, alt.Chart, dict]]:
 
 def fit_summary(res) -> dict[str, str]:
     """Headline numbers of a fit in display units, with their 95% intervals."""
-    from ..units import fmt_conc, fmt_time
+    from ..fmt import conc as fmt_conc
+    from ..fmt import duration as fmt_time
+    from ..fmt import fold, pct, rate1, rate2
 
     est, ci = res.estimates, res.ci95
     out: dict[str, str] = {}
@@ -249,15 +251,15 @@ def fit_summary(res) -> dict[str, str]:
     if _f(est.get("residence_time")):
         out["Residence time"] = fmt_time(est["residence_time"]) + interval("residence_time", fmt_time)
     if _f(est.get("koff")):
-        out["koff"] = f"{est['koff']:.3g} /s" + interval("koff", lambda v: f"{v:.3g} /s")
+        out["koff"] = rate1(est["koff"]) + interval("koff", rate1)
     if _f(est.get("kon")):
-        out["kon"] = f"{est['kon']:.3g} /M/s" + interval("kon", lambda v: f"{v:.3g} /M/s")
+        out["kon"] = rate2(est["kon"]) + interval("kon", rate2)
     if _f(est.get("kd")):
         out["KD"] = fmt_conc(est["kd"]) + interval("kd", fmt_conc)
     if _f(est.get("ki_shift_ratio")):
-        out["Ki shift"] = f"{est['ki_shift_ratio']:.3g}×" + interval("ki_shift_ratio", lambda v: f"{v:.3g}×")
+        out["Ki shift"] = fold(est["ki_shift_ratio"]) + interval("ki_shift_ratio", fold)
     if est.get("max_response_fraction") is not None and math.isfinite(est["max_response_fraction"]):
-        out["Max response"] = f"{100 * est['max_response_fraction']:.0f}% of control"
+        out["Max response"] = f"{pct(est['max_response_fraction'])} of control"
     if res.r_squared is not None and math.isfinite(res.r_squared):
         out["R²"] = f"{res.r_squared:.3f}"
     if res.warnings:

@@ -31,7 +31,8 @@ import altair as alt
 import pandas as pd
 from sqlalchemy import Engine
 
-from ..units import fmt_conc, fmt_time
+from ..fmt import conc as fmt_conc
+from ..fmt import duration as fmt_time
 from . import charts, data, evidence, theme
 from .widgets import rule_title
 

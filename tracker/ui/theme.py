@@ -11,6 +11,9 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
+from ..fmt import GRADE_LABELS as _WORDS
+from ..fmt import UNGRADED_LABEL
+
 
 @dataclass(frozen=True)
 class GradeStyle:
@@ -25,15 +28,16 @@ class GradeStyle:
         return f"{self.glyph} {self.label}"
 
 
-#: Grade values of the grading layer, worst first.  ``clear`` = no finding.
+#: Grade values of the grading layer, worst first.  ``clear`` = no finding.  The words come from
+#: :data:`tracker.fmt.GRADE_LABELS`, which the CLI prints too.
 GRADES: dict[str, GradeStyle] = {
-    "high": GradeStyle("high", "High risk", "▲", "#B5432A", 0),
-    "moderate": GradeStyle("moderate", "Moderate risk", "◆", "#C99A2E", 1),
-    "low": GradeStyle("low", "Low risk", "▼", "#4F7CA8", 2),
-    "clear": GradeStyle("clear", "No flags", "○", "#7D9C84", 3),
+    "high": GradeStyle("high", _WORDS["high"], "▲", "#B5432A", 0),
+    "moderate": GradeStyle("moderate", _WORDS["moderate"], "◆", "#C99A2E", 1),
+    "low": GradeStyle("low", _WORDS["low"], "▼", "#4F7CA8", 2),
+    "clear": GradeStyle("clear", _WORDS["clear"], "○", "#7D9C84", 3),
 }
 #: Used for a compound the grader returned nothing for (should not happen; shown, never hidden).
-UNGRADED = GradeStyle("ungraded", "Not graded", "·", "#A3A3A3", 4)
+UNGRADED = GradeStyle("ungraded", UNGRADED_LABEL, "·", "#A3A3A3", 4)
 
 #: Grading-layer values that mean "no finding" (the canonical one is ``clear``).
 CLEAR_ALIASES = ("clear", "none", "ok", "no-finding", "")

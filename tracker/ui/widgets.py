@@ -8,7 +8,7 @@ from typing import Any
 
 import streamlit as st
 
-from ..units import fmt_conc, fmt_time
+from .. import fmt
 from . import theme
 
 RULE_TITLES = {
@@ -69,17 +69,17 @@ def findings_list(findings: list[dict[str, Any]], empty: str = "No findings: not
 def conc(v: Any) -> str:
     """Molar value as readable text ('3.2 nM'); '–' when missing."""
     f = _num(v)
-    return "–" if f is None else fmt_conc(f)
+    return fmt.conc(f, missing="–")
 
 
 def dur(v: Any) -> str:
     f = _num(v)
-    return "–" if f is None else fmt_time(f)
+    return fmt.duration(f, missing="–")
 
 
 def fold(v: Any) -> str:
     f = _num(v)
-    return "–" if f is None else f"{f:.3g}×"
+    return fmt.fold(f, missing="–")
 
 
 def _num(v: Any) -> float | None:

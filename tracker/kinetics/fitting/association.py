@@ -10,6 +10,7 @@ import numpy.typing as npt
 from scipy import optimize, stats
 
 from ...errors import FitError
+from ...fmt import rate1
 from .. import equations as eq
 from ..equations import LN2, cheng_prusoff_ki
 from .common import (
@@ -132,7 +133,7 @@ def fit_association(
             b.put("residence_time", 1.0 / koff)
             b.put("half_life", LN2 / koff)
             if kobs <= koff:
-                b.warn("kobs-below-koff", f"kobs {kobs:.3g} /s is not above the given koff {koff:.3g} /s: kon cannot "
+                b.warn("kobs-below-koff", f"kobs {rate1(kobs)} is not above the given koff {rate1(koff)}: kon cannot "
                        "be computed (check koff, the concentration and time units)")
             else:
                 kon = (kobs - koff) / L

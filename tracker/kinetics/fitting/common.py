@@ -9,7 +9,8 @@ import numpy as np
 import numpy.typing as npt
 
 from ...errors import FitError
-from ...units import fmt_conc
+from ...fmt import conc as fmt_conc
+from ...fmt import rate2
 from ..equations import LN2
 from .curves import CurveInfo
 from .engine import KOFF_LIMITS, FloatArray, IntArray, _Fit
@@ -131,7 +132,7 @@ def _check_strict(fits: Sequence[_Fit], strict: bool, b: _Builder) -> None:
 
 def _kon_check(b: _Builder, kon: float) -> None:
     if kon > 1e9:
-        b.warn("kon-above-practical", f"kon {kon:.3g} /M/s is above ~1e9 /M/s, near the diffusion limit "
+        b.warn("kon-above-practical", f"kon {rate2(kon)} is above ~1e9 /M/s, near the diffusion limit "
                "(practical ceilings 1e8-1e9 /M/s, from memory); check units and concentrations")
 
 

@@ -10,6 +10,7 @@ import numpy.typing as npt
 from scipy import optimize, stats
 
 from ...errors import FitError
+from ...fmt import rate1
 from .. import equations as eq
 from ..equations import LN2, cheng_prusoff_ki
 from .common import (
@@ -158,8 +159,8 @@ def fit_competition_kinetics(
                "the experiment, so koff is poorly determined; lengthen the window (Georgi et al. 2019, "
                "Br J Pharmacol 176:4731)")
     if k4 > 10.0 * ka:
-        b.warn("fast-competitor", f"the competitor's koff ({k4:.3g} /s) is more than 10x the tracer's kobs "
-               f"({ka:.3g} /s): the curves mostly show the equilibrium shift, so only Ki = koff/kon is well "
+        b.warn("fast-competitor", f"the competitor's koff ({rate1(k4)}) is more than 10x the tracer's kobs "
+               f"({rate1(ka)}): the curves mostly show the equilibrium shift, so only Ki = koff/kon is well "
                "determined (Georgi et al. 2019)")
     return b.result([fit])
 

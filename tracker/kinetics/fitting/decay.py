@@ -10,6 +10,7 @@ import numpy.typing as npt
 from scipy import optimize, stats
 
 from ...errors import FitError
+from ...fmt import rate1
 from .. import equations as eq
 from ..equations import LN2, cheng_prusoff_ki
 from .common import (
@@ -230,7 +231,7 @@ def _biphasic_check(b: _Builder, fit1: _Fit, t: FloatArray, y: FloatArray, idx: 
     distinct = fast / slow > 2.0 and 0.05 < frac_slow < 0.95
     if p < BIPHASIC_P and d_aicc > BIPHASIC_DAICC and distinct:
         b.warn("biphasic", f"a two-phase decay fits clearly better (F test p = {p:.2g}, AICc lower by {d_aicc:.1f}): "
-               f"fast {fast:.3g} /s, slow {slow:.3g} /s ({100 * frac_slow:.0f}% slow); the one-phase koff averages "
+               f"fast {rate1(fast)}, slow {rate1(slow)} ({100 * frac_slow:.0f}% slow); the one-phase koff averages "
                "two processes (second site, rebinding, induced fit or a mixture) and the slow phase's residence "
                f"time is {1 / slow:.3g} s")
 

@@ -181,9 +181,9 @@ def fit_ki_shift(
 
 
 def _time_label(s: float) -> str:
-    from ...units import fmt_time
+    from ...fmt import duration
 
-    return fmt_time(float(s))
+    return duration(float(s))
 
 
 # ============================================================== insurmountability

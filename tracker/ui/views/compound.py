@@ -5,6 +5,7 @@ from __future__ import annotations
 import pandas as pd
 import streamlit as st
 
+from tracker import fmt
 from tracker.errors import KrtError
 from tracker.ui import data, evidence, widgets
 from tracker.ui.main import COMPOUND_KEY, context, page
@@ -12,15 +13,25 @@ from tracker.ui.main import COMPOUND_KEY, context, page
 POTENCY_COLUMNS = {
     "assay": st.column_config.TextColumn("Assay"),
     "readout": st.column_config.TextColumn("Readout", width="small"),
-    "value_nM": st.column_config.NumberColumn("Measured (nM)", format="%.3g"),
-    "incubation_h": st.column_config.NumberColumn("Incubation (h)", format="%.3g"),
-    "predicted_nM": st.column_config.NumberColumn("Predicted apparent (nM)", format="%.3g",
-                                                  help="What this assay should read after its incubation, given the measured kinetics"),
-    "equilibrium_nM": st.column_config.NumberColumn("Projected true (nM)", format="%.3g",
-                                                    help="The measured value corrected to equilibrium with the measured residence time"),
-    "fold": st.column_config.NumberColumn("Fold shift", format="%.2f×", help="Predicted apparent / true affinity at this incubation"),
+    "value_nM": st.column_config.TextColumn("Measured"),
+    "incubation_h": st.column_config.TextColumn("Incubation"),
+    "predicted_nM": st.column_config.TextColumn("Predicted apparent",
+                                                help="What this assay should read after its incubation, given the measured kinetics"),
+    "equilibrium_nM": st.column_config.TextColumn("Projected true",
+                                                  help="The measured value corrected to equilibrium with the measured residence time"),
+    "fold": st.column_config.TextColumn("Fold shift", help="Predicted apparent / true affinity at this incubation"),
     "model": st.column_config.TextColumn("Model", width="small"),
 }
+
+
+def potency_display(table: pd.DataFrame) -> pd.DataFrame:
+    """The potency table as text in the one format (tracker.fmt): 14.9 pM, 2.5 h, 43×."""
+    out = table[list(POTENCY_COLUMNS)].copy()
+    for col in ("value_nM", "predicted_nM", "equilibrium_nM"):
+        out[col] = [widgets.conc(v * 1e-9) for v in table[col]]
+    out["incubation_h"] = [widgets.dur(v * 3600.0) for v in table["incubation_h"]]
+    out["fold"] = [widgets.fold(v) for v in table["fold"]]
+    return out
 
 
 def pick_compound(ctx, key: str = COMPOUND_KEY) -> str | None:
@@ -46,11 +57,11 @@ def kinetics_frame(kin: pd.DataFrame) -> pd.DataFrame:
         return kin
     return pd.DataFrame({
         "Method": kin["method"],
-        "kon (/M/s)": kin["kon_per_M_s"],
-        "koff (/s)": kin["koff_per_s"],
+        "kon": [fmt.rate2(v, missing="–") for v in kin["kon_per_M_s"]],
+        "koff": [fmt.rate1(v, missing="–") for v in kin["koff_per_s"]],
         "Residence time": [widgets.dur(v) for v in kin["residence_time_s"]],
         "KD": [widgets.conc(v) for v in kin["kd_from_rates_M"].fillna(kin["kd_M"])],
-        "koff 95% CI (/s)": [_ci(lo, hi) for lo, hi in zip(kin["koff_low_per_s"], kin["koff_high_per_s"])],
+        "koff 95% CI": [_ci(lo, hi) for lo, hi in zip(kin["koff_low_per_s"], kin["koff_high_per_s"])],
         "Date": kin["measured_on"].dt.date if "measured_on" in kin else None,
         "Source": kin["source"],
     })
@@ -59,7 +70,7 @@ def kinetics_frame(kin: pd.DataFrame) -> pd.DataFrame:
 def _ci(lo, hi) -> str:
     if pd.isna(lo) and pd.isna(hi):
         return "–"
-    return f"{lo:.3g} – {hi:.3g}"
+    return f"{fmt.rate1(lo, missing='0')} – {fmt.rate1(hi, missing='∞')}"
 
 
 def render() -> None:
@@ -99,13 +110,11 @@ def render() -> None:
     if table.empty:
         st.info("No potency values on record.")
     else:
-        st.dataframe(table[list(POTENCY_COLUMNS)], column_config=POTENCY_COLUMNS, hide_index=True, placeholder="–", width="stretch")
+        st.dataframe(potency_display(table), column_config=POTENCY_COLUMNS, hide_index=True, placeholder="–", width="stretch")
 
     if not info["kinetics"].empty:
         st.markdown("**Kinetic measurements**")
-        st.dataframe(kinetics_frame(info["kinetics"]), hide_index=True, placeholder="–", width="stretch",
-                     column_config={"kon (/M/s)": st.column_config.NumberColumn(format="%.3g"),
-                                    "koff (/s)": st.column_config.NumberColumn(format="%.3g")})
+        st.dataframe(kinetics_frame(info["kinetics"]), hide_index=True, placeholder="–", width="stretch")
 
     st.subheader("Apparent affinity against incubation time")
     st.caption("The curve is what an assay would report after each incubation if the compound has the measured kinetics; "
@@ -161,7 +170,7 @@ def _engagement(info: dict, kin: evidence.Kinetics, program: dict) -> None:
     cols[1].metric("Offset (last time above)", widgets.dur(m["offset_s"]),
                    help=f"rapid-equilibrium curve: {widgets.dur(m['rapid_offset_s'])}")
     cols[2].metric("Time above threshold", widgets.dur(m["duration_above_threshold_s"]))
-    cols[3].metric("Peak engagement", "–" if m["peak_occupancy"] is None else f"{100 * m['peak_occupancy']:.0f}%")
+    cols[3].metric("Peak engagement", fmt.pct(m["peak_occupancy"], missing="–"))
     st.caption(f"Kinetics: {kin.source}. Free drug, one binding site, no target turnover. "
                "Simulations are decision support, not dosing advice.")
 

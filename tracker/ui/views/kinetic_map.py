@@ -7,6 +7,7 @@ import numpy as np
 import pandas as pd
 import streamlit as st
 
+from tracker import fmt
 from tracker.ui import charts, data, theme, widgets
 from tracker.ui.main import context
 
@@ -66,7 +67,7 @@ def render() -> None:
     label = ""
     if floor is not None:
         label = f"assay floor of {chosen} at {widgets.dur(inc)}: {widgets.conc(floor)}"
-        st.markdown(f"**Assay floor of {chosen} at {widgets.dur(inc)}: {widgets.conc(floor)}** (ln2 / (kon · t) with the series' median kon {kon:.3g} /M/s from {n} compound(s)). "
+        st.markdown(f"**Assay floor of {chosen} at {widgets.dur(inc)}: {widgets.conc(floor)}** (ln2 / (kon · t) with the series' median kon {fmt.rate2(kon)} from {n} compound(s)). "
                     "Compounds below the dashed line are tighter than this assay can report: they will bunch at the floor.")
     st.altair_chart(charts.kinetic_map_chart(pts, floor_kd_M=floor, floor_label=label, incubation_s=inc), width="stretch")
     below = pts[(pts["series"] == chosen) & (pts["kd_nM"] * 1e-9 < (floor or 0))]
@@ -74,12 +75,10 @@ def render() -> None:
         st.warning(f"{len(below)} compound(s) of {chosen} have a true KD below the floor: "
                    + ", ".join(below["compound"]) + ". Their potency at this incubation is underestimated.")
     with st.expander("Points as a table"):
-        st.dataframe(pts.rename(columns={"kon": "kon (/M/s)", "koff": "koff (/s)", "rt_text": "Residence time",
-                                         "kd_nM": "KD (nM)", "grade_label": "Grade"}),
-                     hide_index=True, width="stretch",
-                     column_config={"kon (/M/s)": st.column_config.NumberColumn(format="%.3g"),
-                                    "koff (/s)": st.column_config.NumberColumn(format="%.3g"),
-                                    "KD (nM)": st.column_config.NumberColumn(format="%.3g")})
+        table = pts.assign(kon=[fmt.rate2(v) for v in pts["kon"]], koff=[fmt.rate1(v) for v in pts["koff"]],
+                           kd_nM=[fmt.conc(v * 1e-9) for v in pts["kd_nM"]])
+        st.dataframe(table.rename(columns={"rt_text": "Residence time", "kd_nM": "KD", "grade_label": "Grade"}),
+                     hide_index=True, width="stretch")
 
 
 if __name__ == "__main__":
