@@ -36,7 +36,7 @@ def _arrays(x_in: npt.ArrayLike, y_in: npt.ArrayLike, what: str = "time") -> tup
 def _label_text(v: float, unit: str) -> str:
     """A readable curve label: concentrations in the handiest of fM..mM (``'0.1 nM'``), else ``value unit``."""
     if unit == "M" and v > 0:
-        return fmt_conc(v, 4)
+        return fmt_conc(v, digits=4)
     return f"{v:.4g} {unit}"
 
 
