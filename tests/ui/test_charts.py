@@ -127,3 +127,37 @@ def test_best_potency_is_the_tightest_value_with_its_own_incubation(shared_engin
         best = rows.sort_values(["value_M", "id"]).iloc[0]
         assert summary.loc[name, "best_potency_M"] == pytest.approx(best["value_M"])
         assert summary.loc[name, "best_incubation_s"] == pytest.approx(best["incubation_s"])
+
+
+def _map(n_series: int, **kw):
+    pts = pd.DataFrame({"compound": [f"QX-{i}" for i in range(n_series)], "series": [f"S{i}" for i in range(n_series)],
+                        "stage": ["hit"] * n_series, "grade_label": [theme.grade_label("high")] * n_series,
+                        "kon": np.geomspace(1e5, 1e7, n_series), "koff": np.geomspace(1e-5, 1e-2, n_series),
+                        "rt_text": ["1 h"] * n_series, "kd_nM": [1.0] * n_series})
+    return charts.kinetic_map_chart(pts, **kw).to_dict()
+
+
+def _point_layer(spec: dict) -> dict:
+    return next(layer for layer in spec["layer"] if "shape" in layer.get("encoding", {}))
+
+
+def test_kinetic_map_shows_grade_by_colour_alone_and_every_series_by_a_distinct_visible_shape():
+    layer = _point_layer(_map(6))
+    enc = layer["encoding"]
+    # grade: colour only, with plain swatches (no marker shapes that mean series elsewhere)
+    assert enc["color"]["legend"]["symbolType"] == "square"
+    # series: one distinct shape each, drawn outlined in the legend so none is invisible
+    shapes = enc["shape"]["scale"]["range"]
+    assert len(set(shapes)) == 6
+    assert enc["shape"]["legend"]["symbolFillColor"] == "white" and enc["shape"]["legend"]["symbolStrokeWidth"] > 0
+    # the grade legend's entries are names without the badge glyphs (which are shapes)
+    assert not any(g.glyph in label for g in theme.GRADES.values() for label in enc["color"]["scale"]["domain"])
+    assert {t["field"] for t in enc["tooltip"]} >= {"compound", "series", "grade_name"}  # labels on hover
+
+
+def test_kinetic_map_can_print_compound_names_beside_the_points():
+    without = _map(3)
+    with_names = _map(3, labels=True)
+    text_layers = lambda spec: [l for l in spec["layer"] if l.get("encoding", {}).get("text", {}).get("field") == "compound"]  # noqa: E731
+    assert not text_layers(without)
+    assert len(text_layers(with_names)) == 1

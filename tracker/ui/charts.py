@@ -301,14 +301,22 @@ RT_LABELS = {60.0: "1 min", 600.0: "10 min", H: "1 h", 10 * H: "10 h", 100 * H: 
 MAP_HEIGHT = 460
 
 
+# Legible, distinct outlines for series (grade is colour only; the grade legend shows plain swatches).
+SERIES_SHAPES = ("circle", "square", "triangle-up", "diamond", "cross", "triangle-down", "triangle-left",
+                 "triangle-right", "wedge", "stroke")
+
+
 def kinetic_map_chart(points: pd.DataFrame, *, floor_kd_M: float | None = None, floor_label: str = "",
-                      incubation_s: float | None = None) -> alt.Chart:
+                      incubation_s: float | None = None, labels: bool = False) -> alt.Chart:
     """log kon against log koff, with iso-affinity diagonals and iso-residence-time lines.
 
     ``points``: ``compound, series, stage, grade_label, kon, koff, rt_text, kd_nM``
     (kon in /M/s, koff in /s; both > 0).  ``floor_kd_M`` draws the series'
     assay floor as a dashed iso-affinity line: compounds below it (tighter
-    true affinity) read at the floor after ``incubation_s``.
+    true affinity) read at the floor after ``incubation_s``.  Grade is shown
+    by colour alone (square swatches in its legend), series by the marker's
+    shape (outlined in the legend so every shape is visible); names appear on
+    hover, or beside each point with ``labels=True``.
     """
     pts = points[(points["kon"] > 0) & (points["koff"] > 0)]
     if pts.empty:
@@ -368,15 +376,29 @@ def kinetic_map_chart(points: pd.DataFrame, *, floor_kd_M: float | None = None, 
 
     pts = pts.assign(kon_text=[rate2(v) for v in pts["kon"]], koff_text=[rate1(v) for v in pts["koff"]],
                      kd_text=[conc(v * 1e-9) for v in pts["kd_nM"]])
-    layers.append(alt.Chart(pts).mark_point(size=110, filled=True, opacity=0.95, stroke="white", strokeWidth=0.8).encode(
+    # The grade legend shows the grade's name and colour only: the glyphs of the badges are shapes, and on
+    # this chart shapes mean series.
+    styles = list(theme.GRADES.values()) + [theme.UNGRADED]
+    pts = pts.assign(grade_name=[theme.style_for_label(v).label for v in pts["grade_label"]])
+    grade_scale = alt.Scale(domain=[g.label for g in styles], range=[g.colour for g in styles])
+    series_names = sorted(pts["series"].astype(str).unique())
+    shapes = [SERIES_SHAPES[i % len(SERIES_SHAPES)] for i in range(len(series_names))]
+    layers.append(alt.Chart(pts).mark_point(size=110, filled=True, opacity=0.95, stroke=theme.INK, strokeWidth=0.6).encode(
         x=alt.X("koff:Q", scale=xs, title=x_title, axis=x_axis), y=alt.Y("kon:Q", scale=ys, title=y_title, axis=y_axis),
-        color=alt.Color("grade_label:N", scale=grade_colour_scale(), title="Grade"),
-        shape=alt.Shape("series:N", title="Series"),
+        color=alt.Color("grade_name:N", scale=grade_scale, title="Grade (colour)",
+                        legend=alt.Legend(symbolType="square", symbolStrokeWidth=0, orient="right")),
+        shape=alt.Shape("series:N", title="Series (shape)", scale=alt.Scale(domain=series_names, range=shapes),
+                        legend=alt.Legend(symbolFillColor="white", symbolStrokeColor=theme.INK, symbolStrokeWidth=1.5,
+                                          symbolSize=120, orient="right")),
         tooltip=[alt.Tooltip("compound:N", title="Compound"), alt.Tooltip("series:N", title="Series"),
-                 alt.Tooltip("stage:N", title="Stage"), alt.Tooltip("grade_label:N", title="Grade"),
+                 alt.Tooltip("stage:N", title="Stage"), alt.Tooltip("grade_name:N", title="Grade"),
                  alt.Tooltip("kon_text:N", title="kon"), alt.Tooltip("koff_text:N", title="koff"),
                  alt.Tooltip("rt_text:N", title="Residence time"), alt.Tooltip("kd_text:N", title="KD")],
     ))
+    if labels:
+        layers.append(alt.Chart(pts).mark_text(align="left", baseline="middle", dx=8, fontSize=10, color=theme.INK,
+                                               font=theme.FONT).encode(
+            x=alt.X("koff:Q", scale=xs), y=alt.Y("kon:Q", scale=ys), text="compound:N"))
     return _base(alt.layer(*layers), height=MAP_HEIGHT)
 
 

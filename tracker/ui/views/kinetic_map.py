@@ -60,16 +60,18 @@ def render() -> None:
                    "pick a program in the sidebar to see all of its compounds.")
         pts = shown
     series = sorted(pts["series"].unique())
-    c1, c2 = st.columns(2)
+    c1, c2, c3 = st.columns([3, 3, 2])
     chosen = c1.selectbox("Series for the assay floor", series, key="km_series")
     inc = c2.select_slider("Incubation time", options=list(INCUBATIONS_S), value=3600.0, format_func=widgets.dur, key="km_inc")
+    names_on = c3.toggle("Show compound names", value=len(pts) <= 40, key="km_labels",
+                         help="Names beside each point; hovering a point always shows its name")
     floor, kon, n = series_floor(pts, chosen, inc)
     label = ""
     if floor is not None:
         label = f"assay floor of {chosen} at {widgets.dur(inc)}: {widgets.conc(floor)}"
         st.markdown(f"**Assay floor of {chosen} at {widgets.dur(inc)}: {widgets.conc(floor)}** (ln2 / (kon · t) with the series' median kon {fmt.rate2(kon)} from {n} compound(s)). "
                     "Compounds below the dashed line are tighter than this assay can report: they will bunch at the floor.")
-    st.altair_chart(charts.kinetic_map_chart(pts, floor_kd_M=floor, floor_label=label, incubation_s=inc), width="stretch")
+    st.altair_chart(charts.kinetic_map_chart(pts, floor_kd_M=floor, floor_label=label, incubation_s=inc, labels=names_on), width="stretch")
     below = pts[(pts["series"] == chosen) & (pts["kd_nM"] * 1e-9 < (floor or 0))]
     if floor is not None and not below.empty:
         st.warning(f"{len(below)} compound(s) of {chosen} have a true KD below the floor: "
