@@ -121,7 +121,7 @@ def time_course(c, method: str, outdir: Path) -> dict:
     """Write a raw time course for ``c``; return its manifest row (units as written)."""
     name = c["name"]
     file = f"{name}_{method}.csv"
-    man = dict(file=file, method=method, compound=name, time_unit="min", conc_unit="nM")
+    man = dict(file=file, method=method, compound=name)  # units are in the headers: 'time (min)', 'concentration (nM)' 
     if method == "dissociation":
         t = np.linspace(0, 24 * 60, 25)  # min
         y = noisy(equations.dissociation(t * 60, c["koff"], b0=1000.0, nsb=60.0), 15.0)
@@ -175,7 +175,8 @@ def time_course(c, method: str, outdir: Path) -> dict:
         header = ["concentration", "signal", "curve"]
     else:
         raise ValueError(method)
-    write_csv(outdir / file, header, rows)
+    units = {"time": "time (min)", "concentration": "concentration (nM)"}
+    write_csv(outdir / file, [units.get(h, h) for h in header], [{units.get(k, k): v for k, v in r.items()} for r in rows])
     return man
 
 
@@ -205,8 +206,7 @@ def main() -> None:
     write_csv(out / "kinetics.csv", ["compound", "method", "kon", "koff", "residence_time", "kd", "kon_low", "kon_high",
                                      "koff_low", "koff_high", "date", "source"], kin)
     write_csv(out / "pk.csv", ["compound", "species", "route", "half_life", "free_cmax", "tmax", "dosing_interval"], pk)
-    write_csv(tcdir / "manifest.csv", ["file", "method", "compound", "time_unit", "conc_unit", "tracer_kon",
-                                       "tracer_koff", "tracer_conc"], manifest)
+    write_csv(tcdir / "manifest.csv", ["file", "method", "compound", "tracer_kon", "tracer_koff", "tracer_conc"], manifest)
     print(f"wrote {len(comps)} compounds, {len(pot)} potency rows, {len(kin)} kinetics rows, {len(pk)} PK rows, "
           f"{len(manifest)} time courses")
 

@@ -100,6 +100,11 @@ def test_demo_load_then_grade_json_lists_every_compound_in_every_program(db_url,
         assert {"compound", "program", "series", "stage", "grade", "findings"} <= set(r)
         for f in r["findings"]:
             assert {"rule", "severity", "message", "prompt"} <= set(f)
+    # kon is 'kon_per_M_per_s' as in every JSON output; the old 'kon_per_M_s' stays one release, same value
+    with_kon = [f for r in rows for f in r["findings"] if "kon_per_M_s" in f]
+    assert with_kon, "the demo has assay-floor findings that report the kon used"
+    for f in with_kon:
+        assert f["kon_per_M_per_s"] == f["kon_per_M_s"] and f["kon_per_M_per_s"] > 0
 
 
 def test_demo_saved_fits_show_in_info(db_url, capsys, monkeypatch):

@@ -13,8 +13,6 @@ import numpy as np
 import pytest
 
 from tracker.cli import main
-from tracker.commands.fit import read_dose_response, read_time_course
-from tracker.errors import InputError
 from tracker.kinetics import equations as eq
 
 CONTRACT = {
@@ -69,7 +67,7 @@ def test_association_at_several_concentrations_in_nanomolar_gives_kon_and_koff(t
         for t in np.linspace(0, 1800, 25):
             rows.append((t, f"{eq.association(t, c * 1e-9, 1e6, 1e-3, 1000) + rng.normal(0, 10):.3f}", c, f"L{c}"))
     path = write(tmp_path / "assoc.csv", "time,signal,concentration,curve", rows)
-    d = run_json(capsys, ["fit", "association", path, "--conc-unit", "nM"])
+    d = run_json(capsys, ["fit", "association", path, "--conc-unit", "nM", "--time-unit", "s"])
     assert d["kon_per_M_per_s"] == pytest.approx(1e6, rel=0.1)
     assert d["koff_per_s"] == pytest.approx(1e-3, rel=0.1)
     assert d["kd_M"] == pytest.approx(1e-9, rel=0.1)
@@ -106,7 +104,7 @@ def test_jump_dilution_uses_the_control_curve_and_warns_that_kobs_is_not_koff(tm
     t = np.linspace(0, 3600, 40)
     rows = [(a, f"{5 + 2 * a + rng.normal(0, 15):.2f}", "control") for a in t]
     rows += [(a, f"{eq.jump_dilution_progress(a, 0.1, 2.0, 1e-3, 3) + rng.normal(0, 15):.2f}", "cpd-7") for a in t]
-    d = run_json(capsys, ["fit", "jump-dilution", write(tmp_path / "jd.csv", "time,signal,curve", rows)])
+    d = run_json(capsys, ["fit", "jump-dilution", write(tmp_path / "jd.csv", "time (s),signal,curve", rows)])
     assert d["koff_per_s"] == pytest.approx(1e-3, rel=0.25)
     assert "kobs-not-koff" in {w["code"] for w in d["warnings"]}
 
@@ -140,68 +138,55 @@ def test_insurmountability_reports_the_fraction_of_maximal_response(tmp_path, ca
     for label, emax in (("control", 100), ("antagonist 30 nM", 50)):
         for x in np.geomspace(1e-10, 1e-4, 13):
             rows.append((x, f"{eq.agonist_response(x, 0, emax, 1e-8, 1) + rng.normal(0, 2):.2f}", label))
-    path = write(tmp_path / "ins.csv", "concentration,signal,curve", rows)
+    path = write(tmp_path / "ins.csv", "concentration (M),signal,curve", rows)
     d = run_json(capsys, ["fit", "insurmountability", path])
     assert d["max_response_fraction"] == pytest.approx(0.5, rel=0.1)
     lo, hi = d["max_response_fraction_ci95"]
     assert lo < 0.5 < hi
 
 
-# ------------------------------------------------------------ reader
-def test_reader_converts_columns_to_si_and_keeps_line_numbers(tmp_path):
-    path = write(tmp_path / "r.csv", "Time (min),signal,Concentration [nM],curve,note",
-                 [(0, 1, 5, "a", "x"), (2, 3, 5, "a", "")])
-    df = read_time_course(path)
-    assert list(df["time"]) == [0.0, 120.0]
-    assert df["concentration"].tolist() == pytest.approx([5e-9, 5e-9])
-    assert df["line"].tolist() == [2, 3] and df.attrs["source"] == path
-
-
-def test_reader_turns_time_labels_into_incubations(tmp_path):
-    path = write(tmp_path / "k.csv", "concentration,signal,curve", [(1, 2, "30 min"), (1, 2, "2"), (1, 2, "1 day")])
-    df = read_dose_response(path, "nM", "h", need_incubation=True)
-    assert df["incubation"].tolist() == [1800.0, 7200.0, 86400.0]
-
-
-def test_reader_errors_carry_file_line_and_column(tmp_path):
-    path = write(tmp_path / "bad.csv", "time,signal", [(0, 1), (60, "n/a")])
-    with pytest.raises(InputError) as exc:
-        read_time_course(path)
-    assert exc.value.location.line == 3 and exc.value.location.column == "signal"
-
-
 # ------------------------------------------------------------ bad input: one line, non-zero exit
 def _constant(tmp):
-    return write(tmp / "data.csv", "time,signal", [(t, 5) for t in range(20)])
+    return write(tmp / "data.csv", "time (s),signal", [(t, 5) for t in range(20)])
 
 
 BAD = [
     ("missing file", None, ["fit", "dissociation", "{tmp}/absent.csv"], "absent.csv: file not found"),
+    ("semicolon file", "time (s);signal\n0;1\n", ["fit", "dissociation", "{f}"],
+     "data.csv:1: the file uses ';' between fields; save it comma-separated"),
+    ("tab file", "time (s)\tsignal\n0\t1\n", ["fit", "dissociation", "{f}"],
+     "data.csv:1: the file uses tabs between fields; save it comma-separated"),
+    ("unitless time header", "time,signal\n0,1\n60,2\n", ["fit", "dissociation", "{f}"],
+     "data.csv:1: time: a unit is needed: write it in the header, e.g. 'time (min)', or give the time unit (--time-unit)"),
+    ("unitless concentration header", "time (min),signal,concentration\n0,1,1\n", ["fit", "association", "{f}"],
+     "data.csv:1: concentration: a unit is needed"),
+    ("header unit contradicts the option", "time (min),signal\n0,1\n", ["fit", "dissociation", "{f}", "--time-unit", "s"],
+     "data.csv:1: time: the header says 'min' but the time unit given is 's'"),
     ("empty file", "", ["fit", "dissociation", "{f}"], "file is empty"),
     ("no data rows", "time,signal\n", ["fit", "dissociation", "{f}"], "data.csv:2: no data rows"),
     ("missing column", "time,value\n0,1\n", ["fit", "dissociation", "{f}"], "data.csv:1: signal: missing column 'signal'"),
-    ("non-numeric cell", "time,signal\n0,1\n60,abc\n", ["fit", "dissociation", "{f}"], "data.csv:3: signal: not a number: 'abc'"),
-    ("empty cell", "time,signal\n0,\n", ["fit", "dissociation", "{f}"], "data.csv:2: signal: empty cell"),
-    ("not finite", "time,signal\n0,1\nnan,2\n", ["fit", "dissociation", "{f}"], "data.csv:3: time: not a finite number"),
-    ("negative time", "time,signal\n0,1\n-5,2\n", ["fit", "dissociation", "{f}"], "data.csv:3: time: negative time"),
+    ("non-numeric cell", "time (s),signal\n0,1\n60,abc\n", ["fit", "dissociation", "{f}"], "data.csv:3: signal: not a number: 'abc'"),
+    ("empty cell", "time (s),signal\n0,\n", ["fit", "dissociation", "{f}"], "data.csv:2: signal: empty cell"),
+    ("not finite", "time (s),signal\n0,1\nnan,2\n", ["fit", "dissociation", "{f}"], "data.csv:3: time: not a finite number"),
+    ("negative time", "time (s),signal\n0,1\n-5,2\n", ["fit", "dissociation", "{f}"], "data.csv:3: time: negative time"),
     ("header unit of the wrong kind", "time (nM),signal\n0,1\n", ["fit", "dissociation", "{f}"],
      "data.csv:1: time: unit 'nM' is a concentration"),
-    ("too few points", "time,signal\n0,10\n60,8\n120,6\n180,5\n", ["fit", "dissociation", "{f}"], "too few points"),
+    ("too few points", "time (s),signal\n0,10\n60,8\n120,6\n180,5\n", ["fit", "dissociation", "{f}"], "too few points"),
     ("constant signal", _constant, ["fit", "dissociation", "{f}"], "data.csv: the signal is constant"),
     ("unknown method", "time,signal\n0,1\n", ["fit", "decay", "{f}"], "invalid choice: 'decay'"),
-    ("option unit of the wrong kind", "time,signal,concentration\n0,1,1\n", ["fit", "association", "{f}", "--koff", "1 nM"],
+    ("option unit of the wrong kind", "time (s),signal,concentration (nM)\n0,1,1\n", ["fit", "association", "{f}", "--koff", "1 nM"],
      "--koff: unit 'nM' is a concentration, expected a first-order rate"),
-    ("option without unit", "time,signal,concentration\n0,1,1\n", ["fit", "association", "{f}", "--koff", "0.001"],
+    ("option without unit", "time (s),signal,concentration (nM)\n0,1,1\n", ["fit", "association", "{f}", "--koff", "0.001"],
      "--koff: missing unit"),
     ("option for another method", "time,signal\n0,1\n", ["fit", "dissociation", "{f}", "--koff", "1e-3 /s"],
      "--koff does not apply to dissociation"),
-    ("tracer constants missing", "time,signal,concentration\n0,1,1\n", ["fit", "competition-kinetics", "{f}"],
+    ("tracer constants missing", "time (s),signal,concentration (nM)\n0,1,1\n", ["fit", "competition-kinetics", "{f}"],
      "needs --tracer-kon, --tracer-koff, --tracer-conc"),
-    ("curve with two concentrations", "time,signal,concentration,curve\n0,1,1,a\n60,2,1,a\n120,3,2,a\n",
+    ("curve with two concentrations", "time (s),signal,concentration (nM),curve\n0,1,1,a\n60,2,1,a\n120,3,2,a\n",
      ["fit", "association", "{f}"], "data.csv:4: concentration: curve 'a' has a second concentration"),
-    ("incubation label that is not a time", "concentration,signal,curve\n1,2,early\n", ["fit", "ki-shift", "{f}"],
+    ("incubation label that is not a time", "concentration (nM),signal,curve\n1,2,early\n", ["fit", "ki-shift", "{f}"],
      "data.csv:2: curve: curve label 'early' is not an incubation time"),
-    ("no control curve", "concentration,signal,curve\n" + "".join(f"{10.0**-k},{k},a\n" for k in range(4, 11)),
+    ("no control curve", "concentration (M),signal,curve\n" + "".join(f"{10.0**-k},{k},a\n" for k in range(4, 11)),
      ["fit", "insurmountability", "{f}"], "exactly one curve labelled 'control'"),
 ]
 

@@ -1,39 +1,10 @@
 """``krt fit METHOD FILE``: fit a raw kinetic time course or dose-response set.
 
-CSV layout
-----------
-One row per reading, a header line naming the columns (case-insensitive;
-other columns such as ``well`` are ignored).  A header may carry its unit,
-``time (min)`` or ``concentration [nM]``, which overrides ``--time-unit`` /
-``--conc-unit`` for that column.
-
-``time``           time since the start (dissociation: since the chase/dilution;
-                   jump dilution: since the dilution; washout: since the wash)
-``signal``         the reading (binding, product, response), any linear scale
-``concentration``  ligand (association), competitor (competition kinetics) or
-                   agonist/inhibitor dose (ki-shift, insurmountability)
-``curve``          label of the curve the row belongs to (optional)
-``incubation``     ki-shift only: incubation time of the row's curve
-
-Per method:
-
-================== ======================= ==========================================
-method             columns                 curves
-================== ======================= ==========================================
-dissociation       time, signal            optional ``curve``: replicates share koff
-association        time, signal,           one curve per concentration; one curve
-                   concentration           alone gives kobs (kon with ``--koff``)
-competition-       time, signal,           one curve per competitor concentration,
-kinetics           concentration           0 = tracer alone; needs ``--tracer-kon``,
-                                           ``--tracer-koff``, ``--tracer-conc``
-jump-dilution      time, signal (product)  ``curve`` ``control`` = uninhibited enzyme
-washout-recovery   time, signal            ``curve`` ``control`` = untreated
-ki-shift           concentration, signal,  one curve per incubation: an
-                   incubation or curve     ``incubation`` column, or ``curve``
-                                           labels that are times (``30 min``, ``4 h``)
-insurmountability  concentration, signal,  ``curve`` ``control`` = agonist alone,
-                   curve                   other labels = with antagonist
-================== ======================= ==========================================
+The file is read by :func:`tracker.io.timecourse.read_time_course` (the same
+reading layer and error format as ``krt import``; column layouts, the plate
+layout with ``--well-map`` and the replicate rules are described there).  Every
+``time``/``incubation``/``concentration`` column needs a unit, in its header
+(``time (min)``) or from ``--time-unit`` / ``--conc-unit``.
 
 Errors name the file, line and column (``data.csv:7: time: not a number: 'x'``).
 Fitted values support ranking and triage; they are not dosing advice.
@@ -41,28 +12,18 @@ Fitted values support ranking and triage; they are not dosing advice.
 
 from __future__ import annotations
 
-import csv
 import json
 import math
-import re
-from pathlib import Path
-
-import numpy as np
-import pandas as pd
 
 from ..domain import FIT_METHODS as METHODS
-from ..errors import FitError, InputError, KrtError, UnitError
+from ..errors import FitError, KrtError, UnitError
 from ..fmt import conc as fmt_conc
 from ..fmt import duration as fmt_time
-from ..fmt import rate1 as fmt_rate1
 from ..fmt import pct as fmt_pct
+from ..fmt import rate1 as fmt_rate1
 from ..fmt import rate2 as fmt_rate2
-from ..units import parse_quantity, unit_factor
-
-TIME_UNITS = ("s", "min", "h")
-CONC_UNITS = ("M", "mM", "uM", "nM", "pM")
-COLUMNS = {"time": "time", "signal": "signal", "concentration": "concentration", "curve": "curve", "incubation": "time"}
-_HEADER = re.compile(r"^\s*([A-Za-z_]+)\s*(?:[\(\[]\s*([^\)\]]*?)\s*[\)\]])?\s*$")
+from ..io.timecourse import CONC_UNITS, TIME_UNITS
+from ..units import parse_quantity
 
 # which options each method accepts (dest names)
 _OPTIONS = {
@@ -77,151 +38,9 @@ _OPTIONS = {
 }
 
 
-# ---------------------------------------------------------------- reading
-def _read_rows(path: Path) -> tuple[list[str], list[tuple[int, list[str]]]]:
-    name = str(path)
-    if not path.exists():
-        raise InputError("file not found", file=name)
-    if path.is_dir():
-        raise InputError("is a directory, not a CSV file", file=name)
-    try:
-        text = path.read_text(encoding="utf-8-sig")
-    except UnicodeDecodeError:
-        raise InputError("not a UTF-8 text file (save the sheet as CSV)", file=name) from None
-    except OSError as exc:
-        raise InputError(f"cannot read file ({exc.strerror})", file=name) from None
-    first = text.split("\n", 1)[0]
-    delim = "\t" if "\t" in first and "," not in first else (";" if ";" in first and "," not in first else ",")
-    reader = csv.reader(text.splitlines(), delimiter=delim)
-    header, rows = None, []
-    for cells in reader:
-        if not any(c.strip() for c in cells):
-            continue
-        if header is None:
-            header = cells
-            continue
-        rows.append((reader.line_num, cells))
-    if header is None:
-        raise InputError("file is empty", file=name)
-    return header, rows
-
-
-def _columns(header: list[str], name: str) -> dict[str, tuple[int, str | None]]:
-    found: dict[str, tuple[int, str | None]] = {}
-    for i, h in enumerate(header):
-        m = _HEADER.match(h)
-        if not m:
-            continue
-        col = m.group(1).lower()
-        if col not in COLUMNS:
-            continue
-        if col in found:
-            raise InputError(f"column {col!r} appears twice", file=name, line=1, column=col)
-        found[col] = (i, m.group(2) or None)
-    return found
-
-
-def read_time_course(path, time_unit: str = "s", conc_unit: str = "M", *, required=("time", "signal")) -> pd.DataFrame:
-    """Read and validate a fit CSV; return a DataFrame in SI units.
-
-    Columns of the result: those present among ``time`` (s), ``signal``,
-    ``concentration`` (M), ``curve`` (str), ``incubation`` (s), plus ``line``
-    (the row's line in the file).  ``attrs['source']`` holds the path.
-    Raises :class:`~tracker.errors.InputError` naming ``file:line: column``.
-    """
-    path = Path(path)
-    name = str(path)
-    header, rows = _read_rows(path)
-    cols = _columns(header, name)
-    for col in required:
-        if col not in cols:
-            have = ", ".join(h.strip() for h in header if h.strip()) or "none"
-            raise InputError(f"missing column {col!r} (columns found: {have})", file=name, line=1, column=col)
-    if not rows:
-        raise InputError("no data rows below the header", file=name, line=2)
-    factors = {}
-    for col, (_, unit) in cols.items():
-        kind = COLUMNS[col]
-        if kind == "time":
-            u = unit or time_unit
-        elif kind == "concentration":
-            u = unit or conc_unit
-        else:
-            continue
-        try:
-            factors[col] = unit_factor(u, kind)
-        except UnitError as exc:
-            raise InputError(str(exc), file=name, line=1, column=col) from None
-    data: dict[str, list] = {c: [] for c in cols}
-    lines = []
-    width = len(header)
-    for line, cells in rows:
-        if len(cells) > width and any(c.strip() for c in cells[width:]):
-            raise InputError(f"{len(cells)} fields but the header has {width}", file=name, line=line)
-        for col, (i, _) in cols.items():
-            raw = cells[i].strip() if i < len(cells) else ""
-            if raw == "":
-                raise InputError("empty cell", file=name, line=line, column=col)
-            if col == "curve":
-                data[col].append(raw)
-                continue
-            try:
-                v = float(raw)
-            except ValueError:
-                raise InputError(f"not a number: {raw!r}", file=name, line=line, column=col) from None
-            if not math.isfinite(v):
-                raise InputError(f"not a finite number: {raw!r}", file=name, line=line, column=col)
-            if col in ("time", "concentration") and v < 0:
-                raise InputError(f"negative {col}: {raw}", file=name, line=line, column=col)
-            if col == "incubation" and v <= 0:
-                raise InputError(f"incubation must be positive: {raw}", file=name, line=line, column=col)
-            data[col].append(v * factors.get(col, 1.0))
-        lines.append(line)
-    df = pd.DataFrame({c: (data[c] if c == "curve" else np.asarray(data[c], float)) for c in cols})
-    df["line"] = np.asarray(lines, int)
-    df.attrs["source"] = name
-    return df
-
-
-def read_dose_response(path, conc_unit: str = "M", time_unit: str = "s", *, need_incubation: bool = False,
-                       need_curve: bool = False) -> pd.DataFrame:
-    """Read a dose-response CSV (``concentration``, ``signal``); SI units.
-
-    With ``need_incubation`` the incubation of each row comes from an
-    ``incubation`` column or, failing that, from ``curve`` labels that are
-    times (``30 min``; a bare number is in ``time_unit``).
-    """
-    req = ("concentration", "signal") + (("curve",) if need_curve else ())
-    df = read_time_course(path, time_unit, conc_unit, required=req)
-    name = str(path)
-    if need_incubation and "incubation" not in df.columns:
-        if "curve" not in df.columns:
-            raise InputError("ki-shift needs an 'incubation' column or 'curve' labels that are times (e.g. '30 min')",
-                             file=name, line=1, column="incubation")
-        inc = []
-        for label, line in zip(df["curve"], df["line"]):
-            try:
-                inc.append(parse_quantity(label, "time", default_unit=time_unit).si)
-            except UnitError as exc:
-                raise InputError(f"curve label {label!r} is not an incubation time ({exc})", file=name,
-                                 line=int(line), column="curve") from None
-        df["incubation"] = np.asarray(inc, float)
-    return df
-
-
-def _check_curves(df: pd.DataFrame, name: str):
-    """Each curve must have one concentration."""
-    if "curve" in df.columns and "concentration" in df.columns:
-        seen: dict[str, tuple[float, int]] = {}
-        for label, c, line in zip(df["curve"], df["concentration"], df["line"]):
-            if label in seen and not math.isclose(seen[label][0], c, rel_tol=1e-9, abs_tol=0.0):
-                raise InputError(f"curve {label!r} has a second concentration ({c:.4g} M; line {seen[label][1]} has "
-                                 f"{seen[label][0]:.4g} M)", file=name, line=int(line), column="concentration")
-            seen.setdefault(label, (c, int(line)))
-
-
 # ---------------------------------------------------------------- command
-_EPILOG = """CSV columns (header names, case-insensitive; 'time (min)' sets a column's unit):
+_EPILOG = """CSV columns (comma-separated, header names case-insensitive). Units are required: in the header,
+'time (min)', 'concentration (nM)', or from --time-unit / --conc-unit; nothing is assumed.
   dissociation          time, signal [, curve]            replicate curves share koff
   association           time, signal, concentration [, curve]
                         one curve gives kobs (kon with --koff); several concentrations a global fit
@@ -231,6 +50,10 @@ _EPILOG = """CSV columns (header names, case-insensitive; 'time (min)' sets a co
   washout-recovery      time, signal, curve               curve 'control' = untreated
   ki-shift              concentration, signal, incubation (or curve labels such as '30 min', '4 h')
   insurmountability     concentration (agonist), signal, curve   curve 'control' = agonist alone
+Replicates: a 'replicate' column (with or without 'curve'); time-course replicates are fitted jointly
+as curves that share the rate constants, each with its own amplitude and baseline.
+Plate layout: a time column and one column per well (A1, B12 ...), with --well-map FILE, a CSV with
+columns well, concentration (unit in the header or the cells), curve.
 """
 
 
@@ -247,8 +70,12 @@ def register(subparsers) -> None:
     )
     p.add_argument("method", choices=METHODS, metavar="METHOD", help="one of: " + ", ".join(METHODS))
     p.add_argument("file", metavar="FILE", help="CSV file (column layout below)")
-    p.add_argument("--time-unit", choices=TIME_UNITS, default="s", help="unit of the time/incubation columns (default s)")
-    p.add_argument("--conc-unit", choices=CONC_UNITS, default="M", help="unit of the concentration column (default M)")
+    p.add_argument("--time-unit", choices=TIME_UNITS, default=None,
+                   help="unit of time/incubation columns whose header names none (no default: a unit is required)")
+    p.add_argument("--conc-unit", choices=CONC_UNITS, default=None,
+                   help="unit of concentration columns whose header names none (no default: a unit is required)")
+    p.add_argument("--well-map", metavar="FILE",
+                   help="plate layout: CSV with columns well, concentration, curve for a file of one column per well")
     p.add_argument("--tracer-kon", metavar="Q", help="tracer kon, e.g. '3e6 /M/s' (competition-kinetics)")
     p.add_argument("--tracer-koff", metavar="Q", help="tracer koff, e.g. '0.01 /s' (competition-kinetics)")
     p.add_argument("--tracer-conc", metavar="Q", help="tracer concentration, e.g. '1 nM' (competition-kinetics, ki-shift)")
@@ -294,16 +121,14 @@ def _options(args) -> dict:
 
 
 def _load(args):
-    if args.method in ("ki-shift", "insurmountability"):
-        return read_dose_response(args.file, args.conc_unit, args.time_unit,
-                                  need_incubation=args.method == "ki-shift",
-                                  need_curve=args.method == "insurmountability")
-    required = ("time", "signal") + (("concentration",) if args.method == "competition-kinetics" else ())
-    return read_time_course(args.file, args.time_unit, args.conc_unit, required=required)
+    from ..io.timecourse import read_time_course
+
+    return read_time_course(args.file, args.method, time_unit=args.time_unit, conc_unit=args.conc_unit,
+                            well_map=args.well_map, control_label=args.control_label)
 
 
 def run(args) -> int:
-    from ..kinetics.fitting import fit_table
+    from ..services.fits import fit_time_course
 
     save_fit = None
     if args.save:
@@ -314,19 +139,12 @@ def run(args) -> int:
             raise KrtError(f"saving fits needs the database layer{detail}") from None
     opts = _options(args)
     df = _load(args)
-    if args.method in ("association", "competition-kinetics"):
-        _check_curves(df, args.file)
-    try:
-        result = fit_table(args.method, df, **opts)
-    except FitError as exc:
-        raise FitError(f"{args.file}: {exc}") from None
-    if not result.success:
-        raise FitError(f"{args.file}: the {args.method} fit did not converge")
+    result = fit_time_course(args.method, df, source=args.file, **opts)
     saved = None
     if save_fit is not None:
         raw_options = {k: getattr(args, k) for k in _OPTIONS if getattr(args, k, None) is not None}
         saved = save_fit(args.save, result, df, args.file,
-                         units={"time": args.time_unit, "concentration": args.conc_unit}, options=raw_options)
+                         units=df.attrs.get("units", {}), options=raw_options)
     if args.json:
         out = result.to_json_keys()
         if saved is not None:

@@ -33,6 +33,11 @@ class RawTable:
     lines: list[int]
     header_line: int = 1
     errors: list[InputError] = field(default_factory=list)
+    header_text: dict[str, str] = field(default_factory=dict)  # lower-case name -> the header cell as written
+
+    def original(self, name: str) -> str:
+        """The header cell of column ``name`` as written (units keep their case: ``nM`` is not ``nm``)."""
+        return self.header_text.get(name, name)
 
     def error(self, line: int | None, column: str | None, message: str) -> InputError:
         return InputError(message, file=self.label, line=line, column=column)
@@ -71,21 +76,31 @@ def _decode(data: bytes, label: str) -> tuple[str | None, InputError | None]:
         )
 
 
+def _expected_header(table: str) -> str:
+    return ",".join(SPECS[table].names) if table in SPECS else "the column names"
+
+
 def read_csv(path: Path, table: str, label: str | None = None) -> RawTable:
     """Read one CSV file of ``table``; problems go to ``RawTable.errors``."""
     label = label or str(path)
-    raw = RawTable(table, label, path.name, pd.DataFrame(), [])
     try:
         data = path.read_bytes()
     except OSError as exc:
+        raw = RawTable(table, label, path.name, pd.DataFrame(), [])
         raw.errors.append(InputError(f"cannot read file: {exc.strerror or exc}", file=label))
         return raw
+    return read_csv_bytes(data, table, label, path.name)
+
+
+def read_csv_bytes(data: bytes, table: str, label: str, source_name: str | None = None) -> RawTable:
+    """Read the bytes of one CSV file (an upload, say) of ``table``; same rules and messages as :func:`read_csv`."""
+    raw = RawTable(table, label, source_name or label, pd.DataFrame(), [])
     text, err = _decode(data, label)
     if err:
         raw.errors.append(err)
         return raw
     if not text.strip():
-        raw.errors.append(raw.error(1, None, f"file is empty; expected a header line: {','.join(SPECS[table].names)}"))
+        raw.errors.append(raw.error(1, None, f"file is empty; expected a header line: {_expected_header(table)}"))
         return raw
     reader = csv.reader(io.StringIO(text, newline=""))
     records: list[list[str]] = []
@@ -104,6 +119,7 @@ def read_csv(path: Path, table: str, label: str | None = None) -> RawTable:
     for first, record in enumerate(records):
         if record and any(c.strip() for c in record):
             header = [c.strip().lower() for c in record]
+            raw.header_text = {c.strip().lower(): c.strip() for c in record}
             raw.header_line = starts[first]
             break
     if header is None:
@@ -151,6 +167,9 @@ def _finish(raw: RawTable, header: list[str] | None, rows: list | None, lines: l
         return
     if len(header) == 1 and ";" in header[0]:
         raw.errors.append(raw.error(raw.header_line, None, "the file uses ';' between fields; save it comma-separated"))
+        return
+    if len(header) == 1 and "\t" in header[0]:
+        raw.errors.append(raw.error(raw.header_line, None, "the file uses tabs between fields; save it comma-separated"))
         return
     if columns is None:
         columns = [list(col) for col in zip(*rows)] if rows else [[] for _ in header]
@@ -220,6 +239,7 @@ def _read_sheet(ws, table: str, label: str, source_name: str) -> RawTable:
             continue
         if header is None:
             header = [("" if c.value is None else str(c.value)).strip().lower() for c in row]
+            raw.header_text = {("" if c.value is None else str(c.value)).strip().lower(): ("" if c.value is None else str(c.value)).strip() for c in row}
             raw.header_line = cells[0].row
             continue
         line = cells[0].row
@@ -236,7 +256,7 @@ def _read_sheet(ws, table: str, label: str, source_name: str) -> RawTable:
         rows.append(values)
         lines.append(line)
     if header is None:
-        raw.errors.append(raw.error(1, None, f"sheet is empty; expected a header row: {','.join(SPECS[table].names)}"))
+        raw.errors.append(raw.error(1, None, f"sheet is empty; expected a header row: {_expected_header(table)}"))
         return raw
     _finish(raw, header, rows, lines)
     return raw
@@ -309,4 +329,4 @@ def gather(path: Path, table: str | None = None) -> tuple[list[RawTable], list[I
     return tables, errors
 
 
-__all__ = ["RawTable", "read_csv", "read_xlsx", "gather"]
+__all__ = ["RawTable", "read_csv", "read_csv_bytes", "read_xlsx", "gather"]

@@ -152,9 +152,15 @@ def _finding_dict(r) -> dict[str, Any]:
     if isinstance(r.caution, str) and r.caution:
         d["caution"] = r.caution
     for k, v in (r.data or {}).items():
+        if k in _RENAMED and _RENAMED[k] not in d:
+            d[_RENAMED[k]] = v  # the contract's name, as in every other JSON output
         if k not in d:
-            d[k] = v
+            d[k] = v  # deprecated spelling kept for one release (README, "JSON keys")
     return d
+
+
+#: finding keys whose first spelling broke the JSON naming (``/M/s`` is ``per_M_per_s`` everywhere else)
+_RENAMED = {"kon_per_M_s": "kon_per_M_per_s"}
 
 
 # ----------------------------------------------------------------------------- fits stored as JSON

@@ -57,22 +57,19 @@ def _ensure_users(engine: Engine) -> None:
 
 def fit_entry(entry: dict[str, str], folder: Path):
     """Read and fit one manifest entry; returns ``(result, raw_frame, options)``."""
-    from ..commands.fit import read_dose_response, read_time_course
-    from ..kinetics.fitting import fit_table
+    from ..io.timecourse import read_time_course
+    from .fits import fit_time_course
 
     path = folder / entry["file"]
     method = entry["method"]
-    tu, cu = entry.get("time_unit") or "s", entry.get("conc_unit") or "M"
-    if method in ("ki-shift", "insurmountability"):
-        df = read_dose_response(path, cu, tu, need_incubation=method == "ki-shift", need_curve=method == "insurmountability")
-    else:
-        df = read_time_course(path, tu, cu, required=("time", "signal"))
+    # the demo files carry their units in the headers ('time (min)'); the manifest may add them for older files
+    df = read_time_course(path, method, time_unit=entry.get("time_unit") or None, conc_unit=entry.get("conc_unit") or None)
     opts: dict[str, Any] = {}
     kinds = {"tracer_kon": "rate2", "tracer_koff": "rate1", "tracer_conc": "concentration"}
     for key, kind in kinds.items():
         if entry.get(key):
             opts[key] = parse_quantity(entry[key], kind).si
-    return fit_table(method, df, **opts), df, opts
+    return fit_time_course(method, df, source=entry["file"], **opts), df, opts
 
 
 def load_demo(engine: Engine) -> dict[str, Any]:
@@ -89,7 +86,7 @@ def load_demo(engine: Engine) -> dict[str, Any]:
     for entry in manifest(folder):
         result, df, opts = fit_entry(entry, tc_folder)
         out = save_fit(entry["compound"], result, df, entry["file"], engine=engine, actor=IMPORTER,
-                       units={"time": entry.get("time_unit", ""), "concentration": entry.get("conc_unit", "")},
+                       units=df.attrs.get("units", {}),
                        options={k: entry[k] for k in ("tracer_kon", "tracer_koff", "tracer_conc") if entry.get(k)})
         saved += bool(out["created"])
     return {"import": summary, "fits_saved": saved, "users": [u for u, _ in DEMO_USERS]}

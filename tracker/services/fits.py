@@ -47,6 +47,24 @@ STORED_METHOD = {
 QUALITATIVE = ("ki-shift", "insurmountability")
 
 
+def fit_time_course(method: str, df: pd.DataFrame, *, source: str = "", **options: Any):
+    """Fit a table read by :func:`tracker.io.timecourse.read_time_course`; the one entry for the CLI, demo and dashboard.
+
+    ``options`` are SI floats (and ``control_label``) as :func:`tracker.kinetics.fitting.fit_table` takes them.
+    A :class:`~tracker.errors.FitError` names ``source``; a fit that does not converge is refused.
+    """
+    from ..kinetics.fitting import fit_table
+
+    prefix = f"{source}: " if source else ""
+    try:
+        result = fit_table(method, df, **options)
+    except FitError as exc:
+        raise FitError(f"{prefix}{exc}") from None
+    if not result.success:
+        raise FitError(f"{prefix}the {method} fit did not converge")
+    return result
+
+
 def default_actor() -> str:
     """The acting user for command-line writes: ``$KRT_USER`` or the OS login."""
     return os.environ.get("KRT_USER") or getpass.getuser()
