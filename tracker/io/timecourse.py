@@ -44,6 +44,7 @@ import math
 import re
 from dataclasses import dataclass
 from pathlib import Path
+from typing import Union
 
 import numpy as np
 import pandas as pd
@@ -74,6 +75,8 @@ _KINDS = {"time": "time", "incubation": "time", "concentration": "concentration"
 _HEADER = re.compile(r"^\s*([A-Za-z_]+)\s*(?:[\(\[]\s*([^\)\]]*?)\s*[\)\]])?\s*$")
 _WELL = re.compile(r"^[A-Za-z]{1,2}0*\d{1,3}$")
 _SEP = " · "
+#: a path, or ``(file name, bytes)`` of an upload
+Source = Union[str, Path, tuple[str, bytes]]
 
 
 def _columns_for(method: str) -> tuple[tuple[str, ...], tuple[str, ...]]:
@@ -101,7 +104,7 @@ class WellMap:
 
 
 # ------------------------------------------------------------------ raw tables
-def _raw(source, label: str | None) -> RawTable:
+def _raw(source: Source, label: str | None) -> RawTable:
     """Read a path (CSV or XLSX) or ``(name, bytes)`` of an upload through the import's reading layer."""
     if isinstance(source, tuple):
         name, data = source
@@ -191,7 +194,7 @@ def _checked(raw: RawTable, values: np.ndarray, name: str, texts: pd.Series | No
 
 
 # ------------------------------------------------------------------ well map
-def read_well_map(source, conc_unit: str | None = None, *, label: str | None = None) -> WellMap:
+def read_well_map(source: Source | pd.DataFrame, conc_unit: str | None = None, *, label: str | None = None) -> WellMap:
     """Read a well map: a CSV path, ``(name, bytes)``, or a DataFrame with columns well, concentration, curve.
 
     Concentrations take the unit of the header (``concentration (nM)``), of
@@ -260,7 +263,7 @@ def _well_key(name: str) -> str:
     return name.strip().upper()
 
 
-def _wide(raw: RawTable, method: str, header: dict, tfac: float, wmap: WellMap | None) -> pd.DataFrame:
+def _wide(raw: RawTable, method: str, header: dict[str, tuple[str, str | None]], tfac: float, wmap: WellMap | None) -> pd.DataFrame:
     """Melt a plate-reader layout (time + one column per well) into the long layout."""
     tcol = header["time"][0]
     wells = [c for c in raw.cells.columns if c != tcol]
@@ -301,12 +304,12 @@ def _wide(raw: RawTable, method: str, header: dict, tfac: float, wmap: WellMap |
 
 # ------------------------------------------------------------------ the reader
 def read_time_course(
-    source,
+    source: Source,
     method: str,
     *,
     time_unit: str | None = None,
     conc_unit: str | None = None,
-    well_map=None,
+    well_map: Source | pd.DataFrame | WellMap | None = None,
     control_label: str | None = None,
     label: str | None = None,
 ) -> pd.DataFrame:

@@ -53,7 +53,7 @@ def fit_time_course(method: str, df: pd.DataFrame, *, source: str = "", **option
     ``options`` are SI floats (and ``control_label``) as :func:`tracker.kinetics.fitting.fit_table` takes them.
     A :class:`~tracker.errors.FitError` names ``source``; a fit that does not converge is refused.
     """
-    from ..kinetics.fitting import fit_table
+    from ..kinetics import fit_table
 
     prefix = f"{source}: " if source else ""
     try:
