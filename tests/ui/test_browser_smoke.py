@@ -26,7 +26,7 @@ CHROMIUM = shutil.which("chromium") or ("/usr/bin/chromium" if Path("/usr/bin/ch
 CHROMIUM_ARGS = ["--no-sandbox", "--disable-gpu", "--disable-background-networking", "--disable-component-update",
                  "--disable-sync", "--no-first-run"]
 PAGES = {  # url path -> page title
-    "": "Risk overview", "compound": "Compound evidence", "kinetic-map": "Kinetic map", "measure-next": "Measure next",
+    "": "Risk overview", "overview": "Risk overview", "compound": "Compound evidence", "kinetic-map": "Kinetic map", "measure-next": "Measure next",
     "stage-gate": "Stage gate", "what-if": "What-if", "review-pack": "Review pack", "load-data": "Load data",
     "audit-trail": "Audit trail",
 }
@@ -153,6 +153,7 @@ def test_every_page_renders_in_the_browser_without_an_error(server, browser, tmp
         _settle(page)
         assert page.locator("h1").first.inner_text().strip() == title, path
         assert page.locator("[data-testid='stException']").count() == 0, path
+        assert "Page not found" not in page.inner_text("body"), path  # every page answers its own deep link
         page.screenshot(path=str(tmp_path / f"{path or 'overview'}.png"))
     page.close()
 

@@ -49,10 +49,22 @@ PAGES: tuple[PageSpec, ...] = (
 )
 
 
+#: The default page is served at ``/``; Streamlit keys pages by their url path, so it is registered under this
+#: internal path and a hidden twin answers its public path (``/overview``), which deep links and bookmarks use.
+DEFAULT_INTERNAL_PATH = "home"
+
+
 def page(url_path: str):
     """The ``st.Page`` of a view (same object identity rules as the navigation: by url path)."""
     spec = next(p for p in PAGES if p.url_path == url_path)
-    return st.Page(VIEWS / spec.file, title=spec.title, url_path=spec.url_path, icon=spec.icon, default=spec.default)
+    path = DEFAULT_INTERNAL_PATH if spec.default else spec.url_path
+    return st.Page(VIEWS / spec.file, title=spec.title, url_path=path, icon=spec.icon, default=spec.default)
+
+
+def deep_link_twins() -> list:
+    """Hidden pages that make every page reachable by its own path, the default one included."""
+    return [st.Page(VIEWS / spec.file, title=spec.title, url_path=spec.url_path, icon=spec.icon, visibility="hidden")
+            for spec in PAGES if spec.default]
 
 
 def open_compound(name: str) -> None:
@@ -192,6 +204,7 @@ def run() -> None:
     groups: dict[str, list] = {}
     for spec in PAGES:
         groups.setdefault(spec.group, []).append(page(spec.url_path))
+    groups[PAGES[0].group].extend(deep_link_twins())
     nav = st.navigation(groups, position="sidebar")
     names = _program_names(url)
     ctx = _build_context()
