@@ -161,3 +161,16 @@ def test_kinetic_map_can_print_compound_names_beside_the_points():
     text_layers = lambda spec: [l for l in spec["layer"] if l.get("encoding", {}).get("text", {}).get("field") == "compound"]  # noqa: E731
     assert not text_layers(without)
     assert len(text_layers(with_names)) == 1
+
+
+def test_the_stage_chart_labels_every_stage_and_counts_in_whole_numbers():
+    from tracker.domain import STAGES
+
+    df = pd.DataFrame({"program": ["P", "P"], "stage": ["hit", "candidate"], "grade_label": [theme.grade_label("high")] * 2,
+                       "n": [1, 2]})
+    spec = charts.grade_counts_chart(df).to_dict()
+    enc = spec["spec"]["encoding"]
+    # all six stages are on the axis even when only two hold compounds, and no label is dropped for overlap
+    assert enc["x"]["scale"]["domain"] == list(STAGES)
+    assert enc["x"]["axis"]["labelOverlap"] is False
+    assert enc["y"]["axis"]["tickMinStep"] == 1 and enc["y"]["axis"]["format"] == "d"

@@ -42,10 +42,12 @@ def grade_counts_chart(df: pd.DataFrame) -> alt.Chart:
 
     ``df`` columns: ``program``, ``stage``, ``grade_label``, ``n``.
     """
-    stage_order = [s for s in STAGES if s in set(df["stage"])]
+    # Every stage is a category on the axis, in pipeline order, each labelled (never thinned out), so the
+    # panels line up; counts take whole-number ticks.
     bars = alt.Chart(df).mark_bar(cornerRadiusTopLeft=2, cornerRadiusTopRight=2).encode(
-        x=alt.X("stage:N", sort=stage_order, title="Stage", axis=alt.Axis(labelAngle=-35)),
-        y=alt.Y("sum(n):Q", title="Compounds (count)", stack="zero"),
+        x=alt.X("stage:N", title="Stage", scale=alt.Scale(domain=list(STAGES)),
+                axis=alt.Axis(labelAngle=-40, labelOverlap=False, labelLimit=160, labelFontSize=11)),
+        y=alt.Y("sum(n):Q", title="Compounds (count)", stack="zero", axis=alt.Axis(tickMinStep=1, format="d")),
         color=alt.Color("grade_label:N", scale=grade_colour_scale(), title="Grade",
                         sort=list(theme.GRADE_LABELS)),
         order=alt.Order("grade_order:Q", sort="ascending"),
@@ -53,7 +55,7 @@ def grade_counts_chart(df: pd.DataFrame) -> alt.Chart:
                  alt.Tooltip("grade_label:N", title="Grade"), alt.Tooltip("sum(n):Q", title="Compounds")],
     ).transform_calculate(
         grade_order=f"indexof({list(theme.GRADE_LABELS)!r}, datum.grade_label)"
-    ).properties(width=220, height=220)
+    ).properties(width=30 * len(STAGES), height=220)
     chart = bars.facet(facet=alt.Facet("program:N", title=None, header=alt.Header(labelFont=theme.FONT, labelFontWeight="bold",
                                                                                   labelFontSize=13)), columns=3)
     return chart.configure_axis(labelFont=theme.FONT, titleFont=theme.FONT, gridColor="#ECECEC").configure_view(strokeWidth=0) \
