@@ -43,6 +43,7 @@ FIT_METHODS: tuple[str, ...] = (
     "washout-recovery",
     "ki-shift",
     "insurmountability",
+    "morrison",
 )
 
 #: Routes of administration of a PK profile.

@@ -61,6 +61,7 @@ if TYPE_CHECKING:  # pragma: no cover - the names below are what __getattr__ loa
         fit_insurmountability,
         fit_jump_dilution,
         fit_ki_shift,
+        fit_morrison,
         fit_table,
         fit_washout_recovery,
     )
@@ -74,7 +75,7 @@ _WHERE = {
     )},
     **{name: ".fitting" for name in (
         "WEIGHTS", "CurveModel", "FitResult", "fit_association", "fit_competition_kinetics", "fit_dissociation",
-        "fit_insurmountability", "fit_jump_dilution", "fit_ki_shift", "fit_table",
+        "fit_insurmountability", "fit_jump_dilution", "fit_ki_shift", "fit_morrison", "fit_table",
         "fit_washout_recovery",
     )},
 }

@@ -35,7 +35,7 @@ Methods
 -------
 ``dissociation``, ``association``, ``competition-kinetics`` (Motulsky & Mahan
 1984), ``jump-dilution``, ``washout-recovery``, ``ki-shift``,
-``insurmountability``; see each ``fit_*`` function for the model, the curve
+``insurmountability``, ``morrison`` (tight binding); see each ``fit_*`` function for the model, the curve
 layout and the warnings.  :func:`fit_table` dispatches a validated SI table (see its docstring).
 
 Fitted values support ranking and triage of compounds.  They are not dosing
@@ -60,7 +60,7 @@ from .association import fit_association
 from .competition import fit_competition_kinetics
 from .curves import CURVE_FUNCTIONS, CurveInfo
 from .decay import fit_dissociation
-from .doseresponse import fit_insurmountability, fit_ki_shift
+from .doseresponse import fit_insurmountability, fit_ki_shift, fit_morrison
 from .engine import HILL_LIMITS, IC50_LIMITS, KOFF_LIMITS, KON_LIMITS, WEIGHTS, Param
 from .recovery import fit_jump_dilution, fit_washout_recovery
 from .results import JSON_KEYS, SCHEMA_VERSION, CurveModel, FitResult
@@ -86,6 +86,7 @@ __all__ = [
     "fit_insurmountability",
     "fit_jump_dilution",
     "fit_ki_shift",
+    "fit_morrison",
     "fit_table",
     "fit_washout_recovery",
 ]

@@ -18,6 +18,72 @@ from .intervals import _recip_ci
 from .results import _Builder
 
 RT_LOWER_BOUND_FRACTION = 0.2  # < 20% of the signal dissociated: RT is a lower bound (brief)
+TREND_P = 0.01  # a curve "rises" or "falls" when Spearman's rank correlation with time (or dose) has p < 0.01
+REPLICATE_SEP = " / "  # curve label of a replicate: "<curve> / <replicate>"
+
+
+def _base_label(name: str) -> str:
+    """The curve part of a replicate label ("control / r2" -> "control"), lower case."""
+    return name.split(REPLICATE_SEP)[0].strip().lower()
+
+
+def replicate_labels(curve: npt.ArrayLike | None, replicate: npt.ArrayLike | None, n: int) -> npt.NDArray[np.str_] | None:
+    """Per-point curve labels that keep replicates apart: ``"<curve> / <replicate>"``.
+
+    Replicate curves of one condition are then fitted jointly: they share the
+    method's rate constants and keep their own per-curve amplitudes.
+    """
+    if replicate is None:
+        return None if curve is None else np.asarray([str(v) for v in np.broadcast_to(np.asarray(curve, object), (n,))])
+    rep = [str(v) for v in np.broadcast_to(np.asarray(replicate, object), (n,))]
+    if curve is None:
+        return np.asarray(rep)
+    cur = [str(v) for v in np.broadcast_to(np.asarray(curve, object), (n,))]
+    return np.asarray([f"{c}{REPLICATE_SEP}{r}" for c, r in zip(cur, rep)])
+
+
+def _trends(x: FloatArray, y: FloatArray, idx: IntArray, ncurves: int, p_max: float = TREND_P) -> list[int]:
+    """Per curve: +1 when the signal rises with ``x``, -1 when it falls, 0 when neither is clear.
+
+    Spearman's rank correlation (scipy.stats.spearmanr) with a two-sided
+    p-value below ``p_max``; a rank test needs no model, so the method's own
+    fit cannot talk itself into the wrong direction.
+    """
+    from scipy import stats
+
+    out = []
+    for i in range(ncurves):
+        sel = idx == i
+        xs, ys = x[sel], y[sel]
+        if xs.size < 4 or np.ptp(xs) == 0 or np.ptp(ys) == 0:
+            out.append(0)
+            continue
+        res = stats.spearmanr(xs, ys)
+        rho, p = float(res.statistic), float(res.pvalue)
+        if np.isfinite(p) and p < p_max:
+            out.append(1 if rho > 0 else -1)
+            continue
+        # a curve complete by its second reading: a step from the first reading, far beyond the
+        # point-to-point noise (robust sd from the median absolute successive difference)
+        order = np.argsort(xs, kind="stable")
+        ys_sorted = ys[order]
+        first = xs[order] == xs[order][0]
+        rest = ys_sorted[~first]
+        sd = 1.4826 * float(np.median(np.abs(np.diff(rest)))) / math.sqrt(2.0) if rest.size > 2 else math.inf
+        step = float(np.median(rest)) - float(np.mean(ys_sorted[first])) if rest.size else 0.0
+        out.append(int(np.sign(step)) if step != 0 and abs(step) > 6.0 * sd else 0)
+    return out
+
+
+def _direction(x: FloatArray, y: FloatArray, idx: IntArray, ncurves: int) -> int:
+    """+1 when curves rise and none falls, -1 when they fall and none rises, else 0."""
+    tr = _trends(x, y, idx, ncurves)
+    up, down = tr.count(1), tr.count(-1)
+    if up and not down:
+        return 1
+    if down and not up:
+        return -1
+    return 0
 
 def _arrays(x_in: npt.ArrayLike, y_in: npt.ArrayLike, what: str = "time") -> tuple[FloatArray, FloatArray]:
     x = np.asarray(x_in, dtype=np.float64).ravel()
@@ -79,7 +145,7 @@ def _group(n: int, labels: npt.ArrayLike | None = None, conc: npt.ArrayLike | No
             raise FitError(f"curve {names[i]!r} has more than one concentration ({lo[i]:.3g} and {hi[i]:.3g} M)")
         cvals = lo
     ctl = control_label.lower() if control_label is not None else None
-    curves = [CurveInfo(name, float(cvals[i]), "control" if ctl is not None and name.strip().lower() == ctl else "sample")
+    curves = [CurveInfo(name, float(cvals[i]), "control" if ctl is not None and _base_label(name) == ctl else "sample")
               for i, name in enumerate(names)]
     if labels is not None and conc_arr is not None and sort_by_conc:
         order_i = sorted(range(nc), key=lambda i: (curves[i].role != "control", curves[i].conc))

@@ -106,11 +106,26 @@ def cf_association_depletion(p: Mapping[str, float], x: FloatArray, idx: IntArra
 
 def cf_induced_fit(p: Mapping[str, float], x: FloatArray, idx: IntArray, curves: Sequence[CurveInfo],
                    context: Mapping[str, float]) -> FloatArray:
-    """Two-step binding read as one phase per curve: kobs hyperbolic in L, plateau L/(L + KD)."""
+    """Two-step binding, first step in rapid equilibrium: one phase per curve from L/(L+K1) to L/(L+KD)."""
     L = _conc(curves, idx)
     kobs = eq.induced_fit_kobs(L, p["k_fwd"], p["k_rev"], p["k1"])
     kd = p["k1"] * p["k_rev"] / (p["k_fwd"] + p["k_rev"])
-    return p["baseline"] + eq.one_phase_association(x, kobs, p["bmax"] * L / (L + kd))
+    f_eq, f_1 = L / (L + kd), L / (L + p["k1"])
+    x = np.asarray(x, dtype=np.float64)
+    return p["baseline"] + p["bmax"] * np.where(x > 0, f_eq - (f_eq - f_1) * np.exp(-kobs * x), 0.0)
+
+
+def cf_rise_per_curve(p: Mapping[str, float], x: FloatArray, idx: IntArray, curves: Sequence[CurveInfo],
+                      context: Mapping[str, float]) -> FloatArray:
+    """Replicate rises: shared kobs, own amplitude and y0."""
+    return eq.one_phase_association(x, p["kobs"], per_curve(p, "amplitude", curves, idx), per_curve(p, "y0", curves, idx))
+
+
+def cf_rise_free_plateaus(p: Mapping[str, float], x: FloatArray, idx: IntArray, curves: Sequence[CurveInfo],
+                          context: Mapping[str, float]) -> FloatArray:
+    """Association with kobs = kon*L + koff but each curve's plateau free (a check on L/(L+KD))."""
+    kobs = p["kon"] * _conc(curves, idx) + p["koff"]
+    return p["baseline"] + eq.one_phase_association(x, kobs, per_curve(p, "amplitude", curves, idx))
 
 
 def cf_competition(p: Mapping[str, float], x: FloatArray, idx: IntArray, curves: Sequence[CurveInfo],
@@ -172,6 +187,8 @@ CURVE_FUNCTIONS: dict[str, CurveFunction] = {
     "global-association": cf_association,
     "global-association-depletion": cf_association_depletion,
     "induced-fit-association": cf_induced_fit,
+    "rise-per-curve": cf_rise_per_curve,
+    "rise-free-plateaus": cf_rise_free_plateaus,
     "motulsky-mahan": cf_competition,
     "jump-dilution": cf_jump,
     "washout-recovery": cf_washout,

@@ -15,6 +15,9 @@ from .. import equations as eq
 from ..equations import LN2, cheng_prusoff_ki
 from .common import (
     RT_LOWER_BOUND_FRACTION,
+    TREND_P,
+    _direction,
+    _trends,
     _arrays,
     _check_strict,
     _group,
@@ -41,6 +44,7 @@ from .engine import (
     _Problem,
     _run,
     _run_vp,
+    check_weights,
 )
 from .intervals import _ci, _intervals, _kd_ci, _recip_ci, _tq
 from .results import FitResult, _Builder
@@ -52,12 +56,32 @@ BIPHASIC_DAICC = 6.0  # and AICc clearly lower (Burnham & Anderson: >~6 strong s
 def fit_dissociation(
     t: npt.ArrayLike, signal: npt.ArrayLike, curve: npt.ArrayLike | None = None, *, check_biphasic: bool = True, intervals: str = "auto",
     lower_bound_fraction: float = RT_LOWER_BOUND_FRACTION, max_nfev: int | None = None, strict: bool = True,
+    weights: str = "none",
 ) -> FitResult:
     """One-phase dissociation to a plateau: Y = plateau + span*exp(-koff*t).
 
-    Several curves (``curve`` labels) share koff and keep their own span and
-    plateau.  Reports ``koff``, ``residence_time`` = 1/koff (Copeland, Pompliano
-    & Meek 2006, Nat Rev Drug Discov 5:730) and ``half_life`` = ln2/koff.
+    Several curves (``curve`` labels, e.g. replicates) are fitted jointly:
+    they share koff and keep their own span and plateau.  Reports ``koff``
+    (1/s), ``residence_time`` = 1/koff (s; Copeland, Pompliano & Meek 2006, Nat
+    Rev Drug Discov 5:730) and ``half_life`` = ln2/koff (s).
+
+    Parameters
+    ----------
+    t : array_like
+        Time since the start of dissociation, s.
+    signal : array_like
+        Bound signal (any unit).
+    curve : array_like, optional
+        Curve label per point.
+    weights : {"none", "proportional", "poisson"}
+        Noise model: constant, proportional to the signal, or proportional to
+        its square root (see :mod:`tracker.kinetics.fitting.engine`).
+
+    Raises
+    ------
+    FitError
+        When a curve rises with time (an association or washout-recovery
+        trace, not a dissociation), or the data cannot be fitted.
 
     Warnings
     --------
@@ -73,11 +97,18 @@ def fit_dissociation(
     ``small-amplitude``, ``fast-vs-sampling``, ``at-limit``, ``ci-open``.
     """
     method = "dissociation"
+    check_weights(weights)
     t, y = _arrays(t, signal)
     curves, idx = _group(t.size, curve)
     nc = len(curves)
     _min_points(t.size, 1 + 2 * nc, method, idx, per_curve=4)
     _not_constant(y, method)
+    rising = [c.label for c, d in zip(curves, _trends(t, y, idx, nc)) if d > 0]
+    if rising:
+        which = "the signal" if nc == 1 else f"curve {rising[0]!r}"
+        raise FitError(f"dissociation: {which} rises with time (Spearman test p < {TREND_P:g}), so this is not a "
+                       "dissociation; likely method: association (binding onset) or washout-recovery (response "
+                       "returning after washout)")
 
     def design(k: float, plateau: bool = True) -> FloatArray:
         cols: list[FloatArray] = []
@@ -94,7 +125,7 @@ def fit_dissociation(
         for i, c in enumerate(curves):
             ps.append(Param(f"span[{c.label}]", pairs[2 * i]))
             ps.append(Param(f"plateau[{c.label}]", pairs[2 * i + 1] if plateau_free else 0.0, fixed=not plateau_free))
-        return _Problem("one-phase-decay", ps, t, y, idx, curves)
+        return _Problem("one-phase-decay", ps, t, y, idx, curves, weights=weights)
 
     grid = _rate_grid(t)
     scored = sorted(((_lin(design(k), y)[1], k) for k in grid))
@@ -111,7 +142,7 @@ def fit_dissociation(
 
     fit = _run_vp(prob, ["koff"], lambda p: design(p["koff"]), pairs, [[math.log10(k)] for k in starts_k], max_nfev)
 
-    b = _Builder(method)
+    b = _Builder(method, weights)
     koff = fit.value("koff")
     tmax = float(t.max())
     y0 = np.array([fit.value(f"span[{c.label}]") + fit.value(f"plateau[{c.label}]") for c in curves])
@@ -135,7 +166,7 @@ def fit_dissociation(
         fit = _run_vp(prob, ["koff"], lambda p: design(p["koff"], plateau=False), lambda c: pairs(c, False),
                       [[z[0]] for z in cons_starts], max_nfev)
         koff = fit.value("koff")
-    elif np.isfinite(observed) and observed < lower_bound_fraction:
+    elif np.isfinite(observed) and 0.0 <= observed < lower_bound_fraction:
         b.warn("small-amplitude", f"only {100 * observed:.0f}% of the starting signal dissociated before the "
                "plateau: check non-specific binding, an irreversible fraction or a second slow phase")
 

@@ -1,4 +1,4 @@
-"""Dose-response fits: four-parameter logistic, the Ki shift, insurmountability."""
+"""Dose-response fits: four-parameter logistic, the Ki shift, insurmountability, Morrison tight binding."""
 
 from __future__ import annotations
 
@@ -14,6 +14,8 @@ from .. import equations as eq
 from ..equations import LN2, cheng_prusoff_ki
 from .common import (
     RT_LOWER_BOUND_FRACTION,
+    TREND_P,
+    _trends,
     _arrays,
     _check_strict,
     _group,
@@ -40,12 +42,18 @@ from .engine import (
     _Problem,
     _run,
     _run_vp,
+    check_weights,
 )
 from .intervals import _ci, _intervals, _kd_ci, _recip_ci, _tq
 from .results import FitResult, _Builder
 
 
 # ============================================================== dose-response helpers
+def _dose_trend(x: FloatArray, y: FloatArray) -> int:
+    """+1 / -1 / 0: the signal rises / falls / does neither with dose (Spearman, log dose, p < TREND_P)."""
+    return _trends(x, y, np.zeros(x.size, dtype=np.intp), 1)[0]
+
+
 def _logistic_fit(x: FloatArray, y: FloatArray, label: str, max_nfev: int | None = None,
                   weights: str = "none") -> _Fit:
     xp = x[x > 0]
@@ -80,6 +88,7 @@ def _logistic_fit(x: FloatArray, y: FloatArray, label: str, max_nfev: int | None
 def fit_ki_shift(
     dose: npt.ArrayLike, signal: npt.ArrayLike, incubation: npt.ArrayLike, *, tracer_conc: float | None = None, tracer_kd: float | None = None,
     labels: npt.ArrayLike | None = None, intervals: str = "auto", max_nfev: int | None = None, strict: bool = True,
+    weights: str = "none",
 ) -> FitResult:
     """Potency at two (or more) incubation times: the Ki-shift ratio.
 
@@ -92,10 +101,17 @@ def fit_ki_shift(
     tracer concentration and KD, each IC50 becomes a Ki by Cheng & Prusoff
     (1973, Biochem Pharmacol 22:3099), which leaves the ratio unchanged.
 
+    Doses in M, incubation times in s; replicate points at one incubation are
+    pooled into its curve; ``weights`` is ``none``, ``proportional`` or
+    ``poisson``.  Raises :class:`FitError` when an incubation's curve shows no
+    concentration-response (Spearman p >= 0.01) or the curves run in opposite
+    directions.
+
     Warnings: ``not-at-equilibrium``, ``reverse-shift``, ``ic50-outside-range``,
     ``hill-not-one``, ``at-limit``, ``ci-open``.
     """
     method = "ki-shift"
+    check_weights(weights)
     x, y = _arrays(dose, signal, "concentration")
     inc = np.broadcast_to(np.asarray(incubation, float), x.shape)
     if not np.all(np.isfinite(inc) & (inc > 0)):
@@ -114,13 +130,24 @@ def fit_ki_shift(
             given = str(u[0]) if u.size == 1 else None
         lab_of[tv] = given or _time_label(tv)
     fits = []
-    b = _Builder(method)
+    b = _Builder(method, weights)
+    directions = []
     for tv in times:
         sel = inc == tv
         lab = lab_of[tv]
         _min_points(int(sel.sum()), 4, f"{method} (incubation {lab})")
         _not_constant(y[sel], f"{method} (incubation {lab})")
-        fits.append(_logistic_fit(x[sel], y[sel], lab, max_nfev))
+        d = _dose_trend(x[sel], y[sel])
+        if d == 0:
+            raise FitError(f"ki-shift: no concentration-response at incubation {lab} (Spearman test p >= {TREND_P:g}): "
+                           "an IC50 cannot be fitted; extend the dose range or check the plate map")
+        directions.append(d)
+    if len(set(directions)) > 1:
+        raise FitError("ki-shift: the curves run in opposite directions (one falls with dose, another rises): check "
+                       "the signal columns; a Ki shift compares one readout across incubation times")
+    for tv in times:
+        sel = inc == tv
+        fits.append(_logistic_fit(x[sel], y[sel], lab_of[tv], max_nfev, weights))
     _check_strict(fits, strict, b)
     per = []
     for tv, fit in zip(times, fits):
@@ -189,7 +216,7 @@ def _time_label(s: float) -> str:
 # ============================================================== insurmountability
 def fit_insurmountability(
     dose: npt.ArrayLike, response: npt.ArrayLike, curve: npt.ArrayLike | None, *, control_label: str = "control", insurmountable_below: float = 0.9,
-    intervals: str = "auto", max_nfev: int | None = None, strict: bool = True,
+    intervals: str = "auto", max_nfev: int | None = None, strict: bool = True, weights: str = "none",
 ) -> FitResult:
     """Agonist curves without (``control_label``) and with antagonist: fraction of Emax remaining.
 
@@ -206,8 +233,13 @@ def fit_insurmountability(
     Warnings: ``insurmountable`` (upper 95% limit below 1 and the fraction below
     ``insurmountable_below``), ``emax-slightly-depressed`` (significant but
     within that margin), ``emax-not-reached``, ``at-limit``, ``ci-open``.
+
+    Doses in M; ``weights`` is ``none``, ``proportional`` or ``poisson``.
+    Raises :class:`FitError` when the control (agonist alone) does not rise
+    with dose: a falling curve is an inhibition curve (ki-shift or morrison).
     """
     method = "insurmountability"
+    check_weights(weights)
     x, y = _arrays(dose, response, "concentration")
     if curve is None:
         raise FitError(f"insurmountability needs curve labels, one of them {control_label!r}")
@@ -226,10 +258,17 @@ def fit_insurmountability(
     remap[order] = np.arange(len(order))
     idx = remap[idx]
     _min_points(x.size, 2 + 3 * len(curves) - 1, method, idx, per_curve=4)
+    d_ctrl = _dose_trend(x[idx == 0], y[idx == 0])
+    if d_ctrl < 0:
+        raise FitError(f"insurmountability: the control curve {curves[0].label!r} falls with dose, so it is not an "
+                       "agonist concentration-response; likely method: ki-shift or morrison (inhibition curves)")
+    if d_ctrl == 0:
+        raise FitError(f"insurmountability: the control curve {curves[0].label!r} shows no response to the agonist "
+                       f"(Spearman test p >= {TREND_P:g}): there is no maximum to compare")
     singles = []
     for i, c in enumerate(curves):
         sel = idx == i
-        f = _logistic_fit(x[sel], y[sel], c.label, max_nfev)
+        f = _logistic_fit(x[sel], y[sel], c.label, max_nfev, weights)
         singles.append(f)
     base = float(np.mean([f.value(f"top[{c.label}]") for f, c in zip(singles, curves)]))
     emax_c = singles[0].value(f"bottom[{curves[0].label}]")
@@ -241,9 +280,9 @@ def fit_insurmountability(
             ps.append(Param(f"fraction[{c.label}]", float(np.clip(frac, -0.5, 2.0)), False, -1.0, 3.0, key=True))
         ps.append(Param(f"ec50[{c.label}]", f.value(f"ic50[{c.label}]"), True, *IC50_LIMITS))
         ps.append(Param(f"hill[{c.label}]", f.value(f"hill[{c.label}]"), False, *HILL_LIMITS))
-    prob = _Problem("agonist-emax-fraction", ps, x, y, idx, curves)
+    prob = _Problem("agonist-emax-fraction", ps, x, y, idx, curves, weights=weights)
     fit = _run(prob, None, max_nfev)
-    b = _Builder(method)
+    b = _Builder(method, weights)
     _check_strict([fit], strict, b)
     ivs = _intervals(fit, intervals)
     b.put_params(fit, ivs)
@@ -276,3 +315,132 @@ def fit_insurmountability(
     return b.result([fit])
 
 
+
+
+# ============================================================== Morrison
+MORRISON_TITRATION = 0.01  # Kapp below 1% of the enzyme: the curve is a titration (IC50 ~ E/2; common practice)
+MORRISON_NOT_TIGHT = 0.1  # enzyme below 10% of Kapp: IC50 ~ Kapp, the ordinary analysis suffices (common practice)
+
+
+def fit_morrison(
+    conc: npt.ArrayLike, signal: npt.ArrayLike, enzyme_conc: float, *, substrate_conc: float | None = None,
+    km: float | None = None, fit_bottom: bool = True, weights: str = "none", intervals: str = "auto",
+    max_nfev: int | None = None, strict: bool = True,
+) -> FitResult:
+    """Tight-binding dose-response: Kapp from the Morrison equation, given the active enzyme concentration.
+
+    Activity = bottom + (top - bottom)*v/v0 with
+    v/v0 = 1 - [(E + I + Kapp) - sqrt((E + I + Kapp)^2 - 4*E*I)]/(2*E)
+    (Morrison 1969, Biochim Biophys Acta 185:269-286; volume and pages from
+    memory), I the total inhibitor and E the active enzyme.  When inhibitor
+    binding depletes free inhibitor (E comparable to Kapp) the ordinary IC50
+    overstates Ki; the Morrison fit does not.  ``ic50`` = Kapp + E/2 (Copeland
+    et al. 1995, Bioorg Med Chem Lett 5:1947-1952).  With the substrate
+    concentration and Km of a competitive inhibitor, ``ki`` = Kapp/(1 + S/Km)
+    (common practice for a competitive mechanism).
+
+    Parameters
+    ----------
+    conc : array_like
+        Total inhibitor concentration per well, M.
+    signal : array_like
+        Enzyme activity (rate or end-point signal), any unit.
+    enzyme_conc : float
+        Active enzyme concentration in the assay, M.
+    substrate_conc, km : float, optional
+        Substrate concentration and its Km, M (both, for ``ki``).
+    fit_bottom : bool
+        Fit a background floor (``True``) or hold it at zero.
+    weights : {"none", "proportional", "poisson"}
+        Noise model.
+
+    Returns
+    -------
+    FitResult
+        ``kapp`` (M), ``ic50`` (M), optionally ``ki`` (M), with 95% intervals.
+
+    Raises
+    ------
+    FitError
+        When the enzyme concentration is not positive, or activity rises with
+        the inhibitor (an activator or agonist curve) or does not change.
+
+    Warnings
+    --------
+    ``titration``
+        Kapp below 1% of the enzyme: the curve measures the enzyme (IC50 ~ E/2),
+        so Kapp is poorly determined; lower the enzyme concentration.
+    ``not-tight-binding``
+        the enzyme is below 10% of Kapp: the ordinary IC50 gives the same
+        answer.
+    ``enzyme-conc-matters``, ``at-limit``, ``ci-open``.
+    """
+    method = "morrison"
+    check_weights(weights)
+    if enzyme_conc is None or not (np.isfinite(enzyme_conc) and enzyme_conc > 0):
+        raise FitError("morrison needs the active enzyme concentration (a positive number, M)")
+    if (substrate_conc is None) != (km is None):
+        raise FitError("the Ki conversion needs both the substrate concentration and Km")
+    if km is not None and substrate_conc is not None and not (km > 0 and substrate_conc >= 0):
+        raise FitError("Km must be positive and the substrate concentration not negative")
+    E = float(enzyme_conc)
+    x, y = _arrays(conc, signal, "concentration")
+    _min_points(x.size, 2 + int(fit_bottom), method)
+    _not_constant(y, method)
+    d = _dose_trend(x, y)
+    if d > 0:
+        raise FitError("morrison: activity rises with inhibitor concentration, so this is not an inhibition curve "
+                       "(an activator or agonist curve); likely method: insurmountability for agonist curves")
+    if d == 0:
+        raise FitError(f"morrison: activity does not fall with inhibitor concentration (Spearman test p >= "
+                       f"{TREND_P:g}): there is no inhibition to fit")
+    xp = x[x > 0]
+    if xp.size < 2:
+        raise FitError("morrison needs at least two positive inhibitor concentrations")
+    curves = (CurveInfo("all"),)
+    idx = np.zeros(x.size, dtype=np.intp)
+    ctx = {"enzyme_conc": E}
+
+    def design(kapp: float) -> FloatArray:
+        f = eq.morrison_fraction(x, E, kapp)
+        return np.column_stack([f, 1.0 - f]) if fit_bottom else f[:, None]
+
+    grid = np.geomspace(max(float(xp.min()) / 100.0, IC50_LIMITS[0] * 10), float(xp.max()) * 10.0, 40)
+    scored = sorted((_lin(design(float(k)), y)[1], float(k)) for k in grid)
+    k0 = scored[0][1]
+    c0 = _lin(design(k0), y)[0]
+    ps = [Param("kapp", k0, True, *IC50_LIMITS, key=True), Param("top", float(c0[0])),
+          Param("bottom", float(c0[1]) if fit_bottom else 0.0, fixed=not fit_bottom)]
+
+    def assemble(c: FloatArray) -> Params:
+        return {"top": float(c[0]), "bottom": float(c[1])} if fit_bottom else {"top": float(c[0])}
+
+    prob = _Problem("morrison", ps, x, y, idx, curves, ctx, weights=weights)
+    fit = _run_vp(prob, ["kapp"], lambda p: design(p["kapp"]), assemble, [[math.log10(k)] for _, k in scored[:3]],
+                  max_nfev)
+    b = _Builder(method, weights)
+    _check_strict([fit], strict, b)
+    ivs = _intervals(fit, intervals)
+    b.put_params(fit, ivs)
+    b.bound_warnings(fit)
+    kapp = fit.value("kapp")
+    kci = _ci(fit, ivs, "kapp")
+    kind = ivs["kapp"].kind
+    b.put("kapp", kapp, kci, kind)
+    b.put("ic50", kapp + E / 2.0, (kci[0] + E / 2.0, kci[1] + E / 2.0), kind)
+    if substrate_conc is not None and km is not None:
+        factor = 1.0 + substrate_conc / km
+        b.put("ki", kapp / factor, (kci[0] / factor, kci[1] / factor), kind)
+        b.extras["ki_conversion"] = "competitive: Ki = Kapp/(1 + S/Km)"
+    b.extras["enzyme_conc_M"] = E
+    if kapp < MORRISON_TITRATION * E:
+        b.warn("titration", f"Kapp ({kapp:.3g} M) is below 1% of the enzyme concentration ({E:.3g} M): the curve "
+               "titrates the enzyme (IC50 ~ E/2), so Kapp is poorly determined; lower the enzyme concentration")
+    elif E < MORRISON_NOT_TIGHT * kapp:
+        b.warn("not-tight-binding", f"the enzyme ({E:.3g} M) is below 10% of Kapp ({kapp:.3g} M): tight binding "
+               "does not distort this IC50, and the ordinary analysis gives the same answer")
+    else:
+        b.warn("enzyme-conc-matters", f"the enzyme concentration ({E:.3g} M) is comparable to Kapp ({kapp:.3g} M): "
+               "Kapp depends on it being the active enzyme concentration; an error in E shifts Kapp (IC50 = Kapp + "
+               "E/2, Copeland et al. 1995)")
+    return b.result([fit])

@@ -14,6 +14,8 @@ from .. import equations as eq
 from ..equations import LN2, cheng_prusoff_ki
 from .common import (
     RT_LOWER_BOUND_FRACTION,
+    TREND_P,
+    _trends,
     _arrays,
     _check_strict,
     _group,
@@ -40,6 +42,7 @@ from .engine import (
     _Problem,
     _run,
     _run_vp,
+    check_weights,
 )
 from .intervals import _ci, _intervals, _kd_ci, _recip_ci, _tq
 from .results import FitResult, _Builder
@@ -49,6 +52,7 @@ from .results import FitResult, _Builder
 def fit_jump_dilution(
     t: npt.ArrayLike, product: npt.ArrayLike, curve: npt.ArrayLike | None = None, *, control_label: str = "control", post_dilution_conc: float | None = None,
     kapp: float | None = None, intervals: str = "auto", max_nfev: int | None = None, strict: bool = True,
+    weights: str = "none",
 ) -> FitResult:
     """Recovery of enzyme activity after a jump dilution.
 
@@ -68,10 +72,19 @@ def fit_jump_dilution(
     koff by about 10% (Copeland, from memory); with both given,
     koff = kobs/(1 + I_post/Kapp).
 
+    Times are s, concentrations M; ``weights`` is ``none``, ``proportional``
+    or ``poisson`` (see :mod:`tracker.kinetics.fitting.engine`).  Replicate
+    curves (own labels) are fitted jointly.
+
+    Raises :class:`FitError` when product falls with time (remaining substrate
+    or a binding trace, not a product curve) or when the inhibited curves slow
+    down instead of speeding up (onset of inhibition, not recovery).
+
     Warnings: ``kobs-not-koff`` (or ``koff-corrected``), ``no-control``, ``vs-differs-from-control``,
     ``rt-lower-bound``, ``weak-initial-inhibition``, ``at-limit``, ``ci-open``.
     """
     method = "jump-dilution"
+    check_weights(weights)
     t, y = _arrays(t, product)
     _not_constant(y, method)
     if (post_dilution_conc is None) != (kapp is None):
@@ -85,6 +98,27 @@ def fit_jump_dilution(
     if not samples:
         raise FitError(f"jump dilution needs at least one inhibited curve (a curve not labelled {control_label!r})")
     _min_points(t.size, 2 + len(curves) + len(samples), method, idx, per_curve=3)
+    falling = [c.label for c, d in zip(curves, _trends(t, y, idx, len(curves))) if d < 0]
+    if falling:
+        raise FitError(f"jump-dilution: curve {falling[0]!r} falls with time (Spearman test p < {TREND_P:g}); product "
+                       "accumulates after a jump dilution, so this looks like remaining substrate or a binding "
+                       "trace; likely method: dissociation")
+    slowing = []
+    for i in samples:  # model-free: the rate over the last third against the first third of each curve
+        sel = idx == i
+        ts, ys = t[sel], y[sel]
+        order = np.argsort(ts, kind="stable")
+        ts, ys = ts[order], ys[order]
+        third = max(3, ts.size // 3)
+        if ts.size < 2 * third or np.ptp(ts[:third]) == 0 or np.ptp(ts[-third:]) == 0:
+            continue
+        early = float(np.polyfit(ts[:third], ys[:third], 1)[0])
+        late = float(np.polyfit(ts[-third:], ys[-third:], 1)[0])
+        slowing.append(early > 0 and late < 0.8 * early)
+    if slowing and all(slowing):
+        raise FitError("jump-dilution: the inhibited curves slow down (the late rate is below the early rate), so "
+                       "activity is being lost, not recovered: this looks like onset of inhibition (a slow-binding "
+                       "progress curve with inhibitor added at time zero), not recovery after dilution")
     is_ctrl = np.isin(idx, controls)
     scale = 1.0 / (1.0 + i_post / kapp) if kapp is not None else 1.0
     ctx = {"vs_scale": scale}
@@ -99,7 +133,7 @@ def fit_jump_dilution(
         cols += [_ind(idx, i) * g for i in samples]  # vi
         return np.column_stack(cols)
 
-    def fit_mode(separate: bool) -> _Fit:
+    def fit_mode(separate: bool, w_fixed: FloatArray | None = None) -> _Fit:
         grid = _rate_grid(t)
         scored = sorted((_lin(design(k, separate), y)[1], k) for k in grid)
         starts = [np.r_[math.log10(k), _lin(design(k, separate), y)[0]] for _, k in scored[:3]]
@@ -112,16 +146,19 @@ def fit_jump_dilution(
         ps += [Param(f"p0[{c.label}]", c0[off + i]) for i, c in enumerate(curves)]
         ps += [Param(f"vi[{curves[i].label}]", c0[off + len(curves) + n]) for n, i in enumerate(samples)]
         names = [q.name for q in ps[1:]]
-        return _run_vp(_Problem("jump-dilution", ps, t, y, idx, curves, ctx), ["kobs"],
+        prob = _Problem("jump-dilution", ps, t, y, idx, curves, ctx, weights=weights if w_fixed is None else "none")
+        if w_fixed is not None:
+            prob.w = w_fixed
+        return _run_vp(prob, ["kobs"],
                        lambda p: design(p["kobs"], separate), lambda c: dict(zip(names, map(float, c))),
                        [[float(z[0])] for z in starts], max_nfev)
 
     fit = fit_mode(separate=False)
-    b = _Builder(method)
+    b = _Builder(method, weights)
     if controls and fit.value("kobs") * float(t.max()) >= 1.5:
         # is the final rate of the inhibited curves really the control's?  (extra-sum-of-squares F test)
         try:
-            alt = fit_mode(separate=True)
+            alt = fit_mode(separate=True, w_fixed=fit.prob.w)
         except FitError:
             alt = None
         if alt is not None and alt.dof > 0 and alt.ssr < fit.ssr:
@@ -179,7 +216,7 @@ def fit_jump_dilution(
 # ============================================================== washout recovery
 def fit_washout_recovery(
     t: npt.ArrayLike, response: npt.ArrayLike, curve: npt.ArrayLike | None = None, *, control_label: str = "control", intervals: str = "auto",
-    max_nfev: int | None = None, strict: bool = True,
+    max_nfev: int | None = None, strict: bool = True, weights: str = "none",
 ) -> FitResult:
     """Response recovering after washout: R = Rmax*(1 - f*exp(-koff*t)).
 
@@ -189,9 +226,14 @@ def fit_washout_recovery(
     a linear occupancy-response relation; rebinding in tissue slows the
     apparent recovery (Vauquelin & Charlton 2010, Br J Pharmacol 161:488).
 
+    Times are s; ``weights`` is ``none``, ``proportional`` or ``poisson``.
+    Raises :class:`FitError` when a treated curve falls after the washout
+    (run-down or onset of block, not recovery).
+
     Warnings: ``rt-lower-bound``, ``no-control``, ``at-limit``, ``ci-open``.
     """
     method = "washout-recovery"
+    check_weights(weights)
     t, y = _arrays(t, response)
     _not_constant(y, method)
     curves, idx = _group(t.size, curve, None, control_label)
@@ -200,6 +242,11 @@ def fit_washout_recovery(
     if not samples:
         raise FitError(f"washout recovery needs at least one treated curve (not labelled {control_label!r})")
     _min_points(t.size, 2 + len(samples), method, idx, per_curve=3)
+    falling = [curves[i].label for i, d in enumerate(_trends(t, y, idx, len(curves))) if d < 0 and i in samples]
+    if falling:
+        raise FitError(f"washout-recovery: curve {falling[0]!r} falls after the washout (Spearman test p < "
+                       f"{TREND_P:g}): the response is running down or being blocked, not recovering; for a falling "
+                       "binding signal the likely method is dissociation")
 
     def design(k: float) -> FloatArray:
         e = np.exp(-k * t)
@@ -217,7 +264,7 @@ def fit_washout_recovery(
     s0 = starts[0]
     ps = [Param("koff", 10 ** float(s0[0]), True, *KOFF_LIMITS, key=True), Param("rmax", float(s0[1]))]
     ps += [Param(f"fraction[{curves[i].label}]", float(s0[2 + n]), key=True) for n, i in enumerate(samples)]
-    prob = _Problem("washout-recovery", ps, t, y, idx, curves)
+    prob = _Problem("washout-recovery", ps, t, y, idx, curves, weights=weights)
     fnames = [q.name for q in ps[2:]]
 
     def w_assemble(c: FloatArray) -> Params:
@@ -225,7 +272,7 @@ def fit_washout_recovery(
         return {"rmax": rmax, **{n: float(v) / rmax for n, v in zip(fnames, c[1:])}}
 
     fit = _run_vp(prob, ["koff"], lambda p: design(p["koff"]), w_assemble, [[float(z[0])] for z in starts], max_nfev)
-    b = _Builder(method)
+    b = _Builder(method, weights)
     _check_strict([fit], strict, b)
     ivs = _intervals(fit, intervals)
     b.put_params(fit, ivs)
