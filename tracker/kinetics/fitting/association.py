@@ -22,7 +22,7 @@ import numpy.typing as npt
 from scipy import optimize, stats
 
 from ...errors import FitError
-from ...fmt import rate1
+from ...fmt import conc, duration, rate1
 from .. import equations as eq
 from ..equations import LN2, cheng_prusoff_ki
 from .common import (
@@ -498,8 +498,8 @@ def _two_state(b: _Builder, one: _Fit, line: dict[str, Any] | None, max_nfev: in
     }
     if preferred:
         b.warn("two-state-preferred", f"the two-state (induced-fit) model fits clearly better (F test p = {p:.2g}, "
-               f"AICc lower by {d_aicc:.1f}): K1 {k1:.3g} M, k_fwd {k_fwd:.3g} /s, k_rev {k_rev:.3g} /s, overall KD "
-               f"{kd:.3g} M, residence time ~1/k_rev = {1 / k_rev:.3g} s; the one-step kon/koff are apparent values "
+               f"AICc lower by {d_aicc:.1f}): K1 {conc(k1)}, k_fwd {rate1(k_fwd)}, k_rev {rate1(k_rev)}, overall KD "
+               f"{conc(kd)}, residence time ~1/k_rev = {duration(1 / k_rev)}; the one-step kon/koff are apparent values "
                "(Vauquelin 2016, Br J Pharmacol 173:1268)")
 
 

@@ -10,7 +10,7 @@ import numpy.typing as npt
 from scipy import optimize, stats
 
 from ...errors import FitError
-from ...fmt import rate1
+from ...fmt import conc, rate1
 from .. import equations as eq
 from ..equations import LN2, cheng_prusoff_ki
 from .common import (
@@ -174,8 +174,9 @@ def _tracer_alone_check(b: _Builder, t: FloatArray, y: FloatArray, idx: IntArray
     b.extras["tracer_check"] = {"kobs_tracer_alone_per_s": kobs, "kobs_ci95_per_s": [lo, hi],
                                 "expected_kobs_per_s": expected, "expected_range_per_s": [e_lo, e_hi]}
     if np.isfinite(lo) and np.isfinite(hi) and (hi < e_lo or lo > e_hi):
-        b.warn("tracer-constants-disagree", f"the tracer-alone curve rises with kobs {kobs:.3g} /s (95% CI "
-               f"{lo:.3g}-{hi:.3g}), but the given tracer constants predict k1*L + k2 = {expected:.3g} /s: the tracer "
+        b.warn("tracer-constants-disagree", f"the tracer-alone curve rises with kobs {rate1(kobs)} (95% CI "
+               f"{rate1(lo)} to {rate1(hi)}), but the given tracer constants predict k1*L + k2 = {rate1(expected)}: "
+               "the tracer "
                "kon/koff (or its concentration) do not describe this assay, so the competitor's kon and koff are "
                "biased; re-measure the tracer under these conditions")
 
@@ -335,7 +336,7 @@ def fit_competition_kinetics(
         b.extras["depletion"] = {"receptor_conc_M": float(receptor_conc), "tracer_fraction_bound": bound / k_conc}
         if bound > 0.1 * k_conc:
             b.warn("tracer-depletion", f"{100 * bound / k_conc:.0f}% of the tracer is bound at equilibrium (receptor "
-                   f"{receptor_conc:.3g} M): the Motulsky-Mahan closed form assumes free tracer equal to the added "
+                   f"{conc(receptor_conc)}): the Motulsky-Mahan closed form assumes free tracer equal to the added "
                    "tracer, so k3 and k4 are biased; lower the receptor concentration below ~10% tracer bound")
     tmax = float(t.max())
     ka = k_on * k_conc + k_off

@@ -10,6 +10,7 @@ import numpy.typing as npt
 from scipy import optimize, stats
 
 from ...errors import FitError
+from ...fmt import conc as fmt_conc
 from .. import equations as eq
 from ..equations import LN2, cheng_prusoff_ki
 from .common import (
@@ -434,13 +435,13 @@ def fit_morrison(
         b.extras["ki_conversion"] = "competitive: Ki = Kapp/(1 + S/Km)"
     b.extras["enzyme_conc_M"] = E
     if kapp < MORRISON_TITRATION * E:
-        b.warn("titration", f"Kapp ({kapp:.3g} M) is below 1% of the enzyme concentration ({E:.3g} M): the curve "
+        b.warn("titration", f"Kapp ({fmt_conc(kapp)}) is below 1% of the enzyme concentration ({fmt_conc(E)}): the curve "
                "titrates the enzyme (IC50 ~ E/2), so Kapp is poorly determined; lower the enzyme concentration")
     elif E < MORRISON_NOT_TIGHT * kapp:
-        b.warn("not-tight-binding", f"the enzyme ({E:.3g} M) is below 10% of Kapp ({kapp:.3g} M): tight binding "
+        b.warn("not-tight-binding", f"the enzyme ({fmt_conc(E)}) is below 10% of Kapp ({fmt_conc(kapp)}): tight binding "
                "does not distort this IC50, and the ordinary analysis gives the same answer")
     else:
-        b.warn("enzyme-conc-matters", f"the enzyme concentration ({E:.3g} M) is comparable to Kapp ({kapp:.3g} M): "
+        b.warn("enzyme-conc-matters", f"the enzyme concentration ({fmt_conc(E)}) is comparable to Kapp ({fmt_conc(kapp)}): "
                "Kapp depends on it being the active enzyme concentration; an error in E shifts Kapp (IC50 = Kapp + "
                "E/2, Copeland et al. 1995)")
     return b.result([fit])
