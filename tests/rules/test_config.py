@@ -18,7 +18,8 @@ def test_the_defaults_are_the_documented_values():
     assert d.floor_factor == 2.0  # design choice
     assert d.assumed_kon_per_M_s == 1e6  # from memory: typical small-molecule kon 1e5-1e8 /M/s
     assert (d.kon_low_per_M_s, d.kon_high_per_M_s) == (1e5, 1e8)  # from memory, as above
-    assert rc.RULES == ("residence-time-unmeasured", "affinity-underestimate", "duration-mismatch")
+    assert rc.RULES[:3] == ("residence-time-unmeasured", "affinity-underestimate", "duration-mismatch")
+    assert set(rc.RULES[3:]) == {"conflicting-kinetics", "affinity-overestimate", "tight-binding-limit", "potency-below-floor"}
     assert rc.GRADES == ("high", "moderate", "low", "clear")
 
 
@@ -51,6 +52,6 @@ def test_bad_overrides_are_refused_with_one_line_messages(override, words):
 
 
 def test_the_version_label_names_the_ruleset_and_the_override_layers():
-    assert rc.version_label() == rc.RULESET_VERSION == "krt-rules-1"
-    assert rc.version_label(2, 7, 3) == "krt-rules-1+g2+p7v3"
-    assert rc.version_label(0, 7, 0) == "krt-rules-1"
+    assert rc.version_label() == rc.RULESET_VERSION == "krt-rules-2"
+    assert rc.version_label(2, 7, 3) == "krt-rules-2+g2+p7v3"
+    assert rc.version_label(0, 7, 0) == "krt-rules-2"

@@ -122,7 +122,7 @@ def test_a_waived_high_finding_passes_and_the_snapshot_names_the_evidence(kestre
     assert d["outcome"] == "approved" and stage_of(kestrel, "K-CAN-1") == "clinical"
     row = decisions(kestrel)[-1]
     snap = json.loads(row["evidence_json"])
-    assert snap["grade"] == "high" and snap["ruleset_version"] == row["ruleset_version"] == "krt-rules-1"
+    assert snap["grade"] == "high" and snap["ruleset_version"] == row["ruleset_version"] == "krt-rules-2"
     assert [f["rule"] for f in snap["findings"]] == ["duration-mismatch"]
     assert snap["measurements"]["kinetic_measurement_ids"] and snap["measurements"]["pk_ids"] and snap["measurements"]["potency_ids"]
     assert snap["rule_settings"]["ki_shift_threshold"] == 6.0

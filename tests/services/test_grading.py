@@ -58,17 +58,18 @@ def test_one_compound_is_graded_with_its_series_as_context(kestrel):
 
 
 def test_a_lead_overrides_a_threshold_for_one_program_and_the_change_is_versioned_and_audited(kestrel):
-    info = set_rule_override(kestrel, "Kestrel", {"ki_shift_threshold": "12"}, by="lena", reason="noisy binding assay")
-    assert info["settings"]["ki_shift_threshold"] == 12.0 and info["source"]["ki_shift_threshold"] == "program"
-    assert info["version"].startswith("krt-rules-1+p") and info["version"].endswith("v1")
+    info = set_rule_override(kestrel, "Kestrel", {"no_shift_ratio": "12", "ki_shift_threshold": "20"}, by="lena",
+                             reason="noisy binding assay")
+    assert info["settings"]["no_shift_ratio"] == 12.0 and info["source"]["no_shift_ratio"] == "program"
+    assert info["version"].startswith("krt-rules-2+p") and info["version"].endswith("v1")
     grades = {r["compound"]: r["grade"] for r in grade_portfolio(kestrel)}
-    assert grades["K-LO-1"] == "clear"  # the 10x shift is now below the program's threshold
-    info2 = set_rule_override(kestrel, "Kestrel", {}, by="lena", reason="back to default", unset=["ki_shift_threshold"])
-    assert info2["version"].endswith("v2") and info2["source"]["ki_shift_threshold"] == "default"
+    assert grades["K-LO-1"] == "clear"  # the 10x shift is now within the program's replicate scatter
+    info2 = set_rule_override(kestrel, "Kestrel", {}, by="lena", reason="back to default", unset=["no_shift_ratio", "ki_shift_threshold"])
+    assert info2["version"].endswith("v2") and info2["source"]["no_shift_ratio"] == "default"
     assert {r["compound"]: r["grade"] for r in grade_portfolio(kestrel)}["K-LO-1"] == "moderate"
     ev = queries.audit_events(kestrel, entity_type="rule_config")
     assert list(ev["actor"]) == ["lena", "lena"] and list(ev["reason"]) == ["noisy binding assay", "back to default"]
-    assert json.loads(ev["after_json"].iloc[0])["settings"] == {"ki_shift_threshold": 12.0}
+    assert json.loads(ev["after_json"].iloc[0])["settings"] == {"no_shift_ratio": 12.0, "ki_shift_threshold": 20.0}
     assert len(queries.rule_configs(kestrel)) == 2
 
 

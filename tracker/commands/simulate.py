@@ -296,6 +296,7 @@ def _cmd_shift(args) -> int:
         "ki_long_M": ki,
         "kon_range_per_M_per_s": [kon_lo, kon_hi],
         "consistent": consistent,
+        "verdict": str(b.verdict),
         "shift_detected": bool(b.shift_detected),
         "rt_low_s": rt(low),
         "rt_high_s": rt(high),
@@ -326,8 +327,21 @@ def _cmd_shift(args) -> int:
             f"{fmt_conc(kd_lo)} to {fmt_conc(ki)}" if kd_lo else f"anything below {fmt_conc(ki)} (may sit at the assay floor)"
         )
         lines.append(f"KD estimate: {fmt_conc(ki)} (Ki at {fmt_time(t_l)}); corrected for that incubation: {corrected}")
+    elif payload["verdict"] == "kon-below-range":
+        lines.append(
+            f"Strongly slow binding: the shift alone implies residence time {fmt_time(float(b.rt_from_ratio_low))} to "
+            f"{'unbounded' if math.isinf(float(b.rt_from_ratio_high)) else fmt_time(float(b.rt_from_ratio_high))}, and with "
+            f"Ki {fmt_conc(ki)} at {fmt_time(t_l)} that needs a kon below {rate2(kon_lo)}, slower than the assumed range "
+            "(widen --kon-range if such a kon is plausible, or measure the kinetics)"
+        )
+    elif payload["verdict"] == "kon-above-range":
+        lines.append(f"The Ki at {fmt_time(t_l)} needs a kon above {rate2(kon_hi)} for any residence time the shift allows: "
+                     "check the value and its units, or widen --kon-range")
+    elif payload["verdict"] == "ratio-beyond-one-step":
+        lines.append(f"The shift exceeds the {t_l / t_s:.3g}x a one-step binder can show between these incubations: "
+                     "suspect two-step binding, compound loss or assay drift")
     else:
-        lines.append("The evidence is inconsistent with slow binding in this model.")
+        lines.append("The short read is tighter than the long one beyond the tolerance: not slow binding in this model.")
     for note in b.notes:
         lines.append(f"Note: {note}")
     return _emit(args, payload, lines)

@@ -502,6 +502,12 @@ class ResidenceTimeBounds:
     consistent: np.ndarray
     shift_detected: np.ndarray
     notes: tuple = field(default_factory=tuple)
+    #: per element: ``consistent``; ``kon-below-range`` (the shift implies an RT so long that
+    #: the long-incubation potency needs a kon below the range: strongly slow binding, not a
+    #: contradiction); ``kon-above-range`` (the potency needs a kon above the range, or is
+    #: below the floor of the highest kon); ``ratio-beyond-one-step`` (larger than t_long/t_short);
+    #: ``ratio-below-one`` (the short read is tighter than the long one beyond the tolerance)
+    verdict: np.ndarray | None = None
 
 
 def _shift_ratio(tau_s, tau_l):
@@ -644,7 +650,15 @@ def residence_time_bounds(
         kd_at_high[c] = 0.0
         if fin.size:
             kd_at_high[fin] = ki[fin] / saturation_fold(t_l[fin] / high[fin])
+    verdict = np.full(r.size, "consistent", dtype=object)
+    verdict[~consistent & (lo_rt > kon_high_rt)] = "kon-below-range"
+    verdict[~consistent & (kon_impossible | (hi_rt < kon_low_rt))] = "kon-above-range"
+    verdict[band_hi <= 1.0] = "ratio-below-one"
+    verdict[band_lo >= max_ratio] = "ratio-beyond-one-step"
     notes = []
+    if np.any(~consistent & (verdict == "kon-below-range")):
+        notes.append("the shift implies a residence time so long that the long-incubation potency needs a kon below the "
+                     "assumed range: strongly slow binding (or slow association), not a contradiction")
     if np.any(ratio_impossible):
         notes.append("shift outside what slow binding can explain (ratio must lie between 1 and t_long/t_short)")
     if np.any(kon_impossible):
@@ -654,5 +668,5 @@ def residence_time_bounds(
     rs = lambda a: a.reshape(shape)  # noqa: E731
     return ResidenceTimeBounds(
         rs(low), rs(high), rs(lo_rt), rs(hi_rt), rs(kon_low_rt), rs(kon_high_rt), rs(kd_at_low), rs(kd_at_high),
-        rs(consistent), rs(shift_detected), tuple(notes),
+        rs(consistent), rs(shift_detected), tuple(notes), rs(verdict),
     )

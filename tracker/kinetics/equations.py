@@ -33,9 +33,11 @@ __all__ = [
     "motulsky_mahan_equilibrium",
     "motulsky_mahan_levels",
     "motulsky_mahan_rates",
+    "munson_rodbard_ki",
     "one_phase_association",
     "one_phase_decay",
     "rate_constants",
+    "tracer_bound_free_ratio",
     "two_phase_decay",
     "washout_recovery",
 ]
@@ -221,6 +223,31 @@ def cheng_prusoff_ki(ic50: ArrayLike, tracer_conc: ArrayLike, tracer_kd: ArrayLi
 def cheng_prusoff_ic50(ki: ArrayLike, tracer_conc: ArrayLike, tracer_kd: ArrayLike) -> FloatArray:
     """Inverse of :func:`cheng_prusoff_ki`: IC50 = Ki*(1 + L/Kd)."""
     return _f(ki) * (1.0 + _f(tracer_conc) / _f(tracer_kd))
+
+
+def tracer_bound_free_ratio(receptor_conc: ArrayLike, tracer_conc: ArrayLike, tracer_kd: ArrayLike) -> FloatArray:
+    """Bound/free tracer ratio y0 at equilibrium without competitor, with depletion of both.
+
+    Total receptor R and tracer L, one site: bound B solves
+    B**2 - (R + L + Kd) B + R L = 0 (the smaller root); y0 = B/(L - B).
+    """
+    r, lt, kd = _f(receptor_conc), _f(tracer_conc), _f(tracer_kd)
+    s = r + lt + kd
+    b = 2.0 * r * lt / (s + np.sqrt(s * s - 4.0 * r * lt))  # the smaller root, without cancellation
+    return b / (lt - b)
+
+
+def munson_rodbard_ki(ic50: ArrayLike, tracer_conc: ArrayLike, tracer_kd: ArrayLike, bound_free_ratio: ArrayLike) -> FloatArray:
+    """Depletion-corrected Cheng-Prusoff (Munson & Rodbard 1988, J Recept Res 8:533-546).
+
+    Ki = IC50 / (1 + L (y0 + 2) / (2 Kd (y0 + 1)) + y0) - Kd y0 / (y0 + 2), with
+    IC50 the total competitor concentration at half-inhibition, L the total tracer
+    concentration added and y0 the bound/free tracer ratio without competitor
+    (:func:`tracer_bound_free_ratio`).  y0 -> 0 gives :func:`cheng_prusoff_ki`.
+    """
+    i50, lt, kd, y0 = _f(ic50), _f(tracer_conc), _f(tracer_kd), _f(bound_free_ratio)
+    out: FloatArray = i50 / (1.0 + lt * (y0 + 2.0) / (2.0 * kd * (y0 + 1.0)) + y0) - kd * y0 / (y0 + 2.0)
+    return out
 
 
 def logistic4(x: ArrayLike, bottom: ArrayLike, top: ArrayLike, ic50: ArrayLike, hill: ArrayLike) -> FloatArray:

@@ -58,6 +58,9 @@ __all__ = [
     "check_ki_shift",
     "check_insurmountability",
     "check_assay_floor",
+    "check_tight_binding",
+    "check_conflicting_kinetics",
+    "CAUTION_OVERESTIMATE",
     "check_residence_time_unmeasured",
     "check_duration_mismatch",
     "fmt_fold",
@@ -239,123 +242,26 @@ def assay_suggestions(potency: pd.DataFrame, compound_ids) -> dict:
 
 
 # ----------------------------------------------------------------------------- prediction
-_FORMAT_NOTE = {
-    "binding": "",
-    "competition-binding": "",
-    "enzyme": "enzyme format approximated as a one-step binding read",
-    "functional": "functional format approximated as a one-step binding read",
-}
+def predict_apparent(rows: pd.DataFrame, *, tolerance=1.25) -> pd.DataFrame:
+    """The evidence model's prediction per potency reading (:func:`tracker.rules.evidence.predict_readings`)."""
+    from .evidence import predict_readings
+
+    return predict_readings(rows, tolerance=tolerance)
 
 
-def predict_apparent(rows: pd.DataFrame) -> pd.DataFrame:
-    """Predicted fold shift (apparent/true) of each potency value at its own incubation.
-
-    Columns used: ``value_M``, ``incubation_s``, ``format``, ``readout``,
-    ``tracer_conc_M``, ``tracer_kd_M``, ``tracer_residence_time_s``,
-    ``koff_per_s``, ``kon_per_M_s``, ``kd_M``, ``koff_low_per_s``,
-    ``koff_high_per_s``.  Rows without ``koff_per_s`` get NaN.
-
-    ``competition-binding`` rows with the tracer's concentration, KD and
-    residence time are simulated as tracer competition (Motulsky & Mahan 1984,
-    apparent Ki by Cheng & Prusoff 1973); every other row as a one-step
-    (saturation) binding read, which for enzyme and functional formats is an
-    approximation and says so in ``note``.  The competitor's KD is the
-    measured one, else koff/kon, else the reported value corrected by the
-    saturation fold.  Fold intervals re-evaluate the fold at ``koff_low`` and
-    ``koff_high`` (kon held at its estimate).
-
-    Returns a frame on the same index: ``fold_shift``, ``fold_shift_low``,
-    ``fold_shift_high``, ``corrected_affinity_M``, ``kd_used_M``,
-    ``simulated_as`` (saturation|competition), ``note``.
-    """
-    n = len(rows)
-    out = pd.DataFrame(index=rows.index)
-    koff = _num(rows, "koff_per_s")
-    value = _num(rows, "value_M")
-    t = _num(rows, "incubation_s")
-    L = _num(rows, "tracer_conc_M")
-    kd_t = _num(rows, "tracer_kd_M")
-    rt_t = _num(rows, "tracer_residence_time_s")
-    kon = _num(rows, "kon_per_M_s")
-    kd = _num(rows, "kd_M")
-    k_lo = _num(rows, "koff_low_per_s")
-    k_hi = _num(rows, "koff_high_per_s")
-    fmt = rows["format"].astype(object).to_numpy() if "format" in rows.columns else np.full(n, "binding", object)
-    readout = rows["readout"].astype(object).to_numpy() if "readout" in rows.columns else np.full(n, "KD", object)
-    ok = np.isfinite(koff) & (koff > 0) & np.isfinite(value) & (value > 0) & np.isfinite(t) & (t > 0)
-    tracer_ok = np.isfinite(L) & (L > 0) & np.isfinite(kd_t) & (kd_t > 0) & np.isfinite(rt_t) & (rt_t > 0)
-    comp = ok & (fmt == "competition-binding") & tracer_ok
-    sat = ok & ~comp
-    fold = np.full(n, np.nan)
-    f_lo = np.full(n, np.nan)
-    f_hi = np.full(n, np.nan)
-    kd_used = np.full(n, np.nan)
-    note = np.array([_FORMAT_NOTE.get(f, "approximated as a one-step binding read") for f in fmt], dtype=object)
-    note[(fmt == "competition-binding") & ~tracer_ok] = "tracer not fully described: approximated as a one-step binding read"
-    note[~ok] = ""
-    if sat.any():
-        i = np.nonzero(sat)[0]
-        # point estimate and both interval ends in one vectorised call; fold falls as koff rises
-        j_lo = i[np.isfinite(k_lo[i]) & (k_lo[i] > 0)]
-        j_hi = i[np.isfinite(k_hi[i]) & (k_hi[i] > 0)]
-        x = saturation_fold(np.concatenate([koff[i] * t[i], k_lo[j_lo] * t[j_lo], k_hi[j_hi] * t[j_hi]]))
-        fold[i] = x[: i.size]
-        f_hi[j_lo] = x[i.size : i.size + j_lo.size]
-        f_lo[j_hi] = x[i.size + j_lo.size :]
-        kd_used[i] = np.where(np.isfinite(kd[i]), kd[i], np.where(np.isfinite(kon[i]) & (kon[i] > 0), koff[i] / kon[i], value[i] / fold[i]))
-    if comp.any():
-        i = np.nonzero(comp)[0]
-        k_t = 1.0 / rt_t[i]
-        ki_reported = np.where(readout[i] == "IC50", value[i] / (1.0 + L[i] / kd_t[i]), value[i])
-        kd_i = np.where(np.isfinite(kd[i]), kd[i], np.where(np.isfinite(kon[i]) & (kon[i] > 0), koff[i] / kon[i], np.nan))
-        est = ~np.isfinite(kd_i)
-        if est.any():
-            kd_i[est] = ki_reported[est] / saturation_fold(koff[i][est] * t[i][est])
-        kd_used[i] = kd_i
-        kon_i = koff[i] / kd_i
-        m_lo = np.isfinite(k_lo[i]) & (k_lo[i] > 0)
-        m_hi = np.isfinite(k_hi[i]) & (k_hi[i] > 0)
-        rows_ = np.concatenate([i, i[m_lo], i[m_hi]])
-        k_all = np.concatenate([koff[i], k_lo[i][m_lo], k_hi[i][m_hi]])
-        kon_all = np.concatenate([kon_i, kon_i[m_lo], kon_i[m_hi]])
-        res = apparent_affinity(k_all / kon_all, k_all, t[rows_], format="competition", tracer_kd=kd_t[rows_],
-                                tracer_koff=1.0 / rt_t[rows_], tracer_conc=L[rows_])  # one call: point and interval ends
-        n_i, n_lo = i.size, int(m_lo.sum())
-        fold[i] = res.fold[:n_i]
-        f_hi[i[m_lo]] = res.fold[n_i : n_i + n_lo]
-        f_lo[i[m_hi]] = res.fold[n_i + n_lo :]
-    out["fold_shift"] = fold
-    out["fold_shift_low"] = np.fmin(f_lo, f_hi)
-    out["fold_shift_high"] = np.fmax(f_lo, f_hi)
-    out["corrected_affinity_M"] = value / fold
-    out["kd_used_M"] = kd_used
-    out["simulated_as"] = np.where(comp, "competition", np.where(sat, "saturation", None))
-    out["note"] = note
-    return out
+CAUTION_OVERESTIMATE = (
+    "An overestimated affinity means lower target coverage than assumed at a given exposure: doses projected from it "
+    "can under-engage the target. " + CAUTION_NOT_DOSING_ADVICE
+)
 
 
-def _min_incubation(rows: pd.DataFrame, pred: pd.DataFrame, tolerance: np.ndarray) -> np.ndarray:
-    """Minimum incubation for the rows given (same format split as :func:`predict_apparent`)."""
-    n = len(rows)
-    out = np.full(n, np.nan)
-    if n == 0:
-        return out
-    koff = _num(rows, "koff_per_s")
-    kd = pred["kd_used_M"].to_numpy(float)
-    comp = (pred["simulated_as"] == "competition").to_numpy()
-    sat = ~comp
-    if sat.any():
-        out[sat] = min_incubation(kd[sat], koff[sat], tolerance=tolerance[sat])
-    if comp.any():
-        L = _num(rows, "tracer_conc_M")[comp]
-        kd_t = _num(rows, "tracer_kd_M")[comp]
-        k_t = 1.0 / _num(rows, "tracer_residence_time_s")[comp]
-        out[comp] = min_incubation(kd[comp], koff[comp], tolerance=tolerance[comp], format="competition",
-                                   tracer_kd=kd_t, tracer_koff=k_t, tracer_conc=L)
-    return out
+def _group_keys(rows: pd.DataFrame) -> np.ndarray:
+    key = rows["reading_group"] if "reading_group" in rows.columns else rows["assay"]
+    parts = [rows["compound_id"].astype(str), key.astype(str), rows["readout"].astype(str), rows["format"].astype(str)]
+    return (parts[0] + "\x1f" + parts[1] + "\x1f" + parts[2] + "\x1f" + parts[3]).to_numpy(dtype=object)
 
 
-# ----------------------------------------------------------------------------- affinity-underestimate (RT known)
+# ----------------------------------------------------------------------------- affinity-underestimate / -overestimate (RT known)
 def check_affinity_underestimate(
     rows: pd.DataFrame,
     *,
@@ -363,20 +269,30 @@ def check_affinity_underestimate(
     fold_tolerance=1.25,
     fold_moderate=3.0,
     fold_high=10.0,
+    max_incubation_s=86400.0,
 ) -> pd.DataFrame:
-    """``affinity-underestimate`` for potency values of compounds whose residence time is measured.
+    """``affinity-underestimate`` and ``affinity-overestimate`` for readings of compounds with measured kinetics.
 
-    ``rows``: one row per potency value with ``compound_id``, ``stage``,
+    ``rows``: one row per potency reading with ``compound_id``, ``stage``,
     ``potency_id``, ``assay``, ``readout``, ``value_M``, ``incubation_s``,
-    ``format``, tracer columns, and the compound's kinetics ``koff_per_s``,
+    ``format``, the tracer columns, optional ``preincubation_s``,
+    ``max_incubation_s`` and ``reading_group`` (readings of one assay at
+    several times share it), and the compound's kinetics ``koff_per_s``,
     ``kon_per_M_s``, ``kd_M``, ``koff_low_per_s``, ``koff_high_per_s``,
-    ``kinetic_measurement_id`` (optional ``rt_lower_bound``).  Columns from
-    :func:`predict_apparent` are used when present, else computed.
+    ``kinetic_measurement_id`` (optional ``rt_lower_bound``).  The
+    predictions of :func:`tracker.rules.evidence.predict_readings` are used
+    when present, else computed.
 
-    Fires where the incubation is shorter than ``incubation_multiple`` x RT
-    (common practice: 2 x RT) **and** the predicted fold shift exceeds
-    ``fold_tolerance`` (common practice: 1.25).  Severity from the shift
-    (``fold_moderate``, ``fold_high``) and the stage.
+    Fires where the format-aware predicted fold lies outside
+    [1/``fold_tolerance``, ``fold_tolerance``] (common practice: 1.25-fold),
+    whatever the incubation is relative to RT: too weak is
+    ``affinity-underestimate``, too potent (a slow tracer at high
+    concentration, read early) is ``affinity-overestimate``.  One finding per
+    reading group and direction, about its worst reading; the recommended
+    incubation is the format-aware minimum of the group's readings; where it
+    exceeds the assay's practical maximum (``max_incubation_s`` per row, else
+    the keyword) a kinetic method is recommended instead.  Severity from the
+    fold away from 1 (``fold_moderate``, ``fold_high``) and the stage.
 
     Examples
     --------
@@ -390,55 +306,107 @@ def check_affinity_underestimate(
     n = len(rows)
     if n == 0:
         return _empty()
-    pred = rows if "fold_shift" in rows.columns else pd.concat([rows, predict_apparent(rows)], axis=1)
+    tol_all = _col(fold_tolerance, n)
+    pred = rows if "min_incubation_s" in rows.columns else pd.concat([rows, predict_apparent(rows, tolerance=tol_all)], axis=1)
+    pred = pred.reset_index(drop=True)
     koff = _num(pred, "koff_per_s")
     t = _num(pred, "incubation_s")
     fold = _num(pred, "fold_shift")
     mult = _col(incubation_multiple, n)
-    tol = _col(fold_tolerance, n)
     f_mod = _col(fold_moderate, n)
     f_high = _col(fold_high, n)
-    rt = 1.0 / koff
-    fires = np.isfinite(fold) & (t < mult * rt) & (fold > tol)
+    max_row = _num(pred, "max_incubation_s")
+    max_inc = np.where(np.isfinite(max_row) & (max_row > 0), max_row, _col(max_incubation_s, n))
+    weak = np.isfinite(fold) & (fold > tol_all)
+    potent = np.isfinite(fold) & (fold < 1.0 / tol_all)
+    fires = weak | potent
     if not fires.any():
         return _empty()
-    sel = pred[fires]
+    dev = np.where(fold > 0, np.abs(np.log(np.where(fold > 0, fold, 1.0))), 0.0)
+    keys = _group_keys(pred) + np.where(weak, "\x1fweak", "\x1fpotent").astype(object)
     idx = np.nonzero(fires)[0]
-    level = np.where(fold[idx] >= f_high[idx], 2, np.where(fold[idx] >= f_mod[idx], 1, 0))
+    frame = pd.DataFrame({"_k": keys[idx], "_i": idx, "_dev": dev[idx], "_tmin": _num(pred, "min_incubation_s")[idx]})
+    worst = frame.sort_values(["_k", "_dev", "_i"], ascending=[True, False, True], kind="mergesort").drop_duplicates("_k")
+    grp = frame.groupby("_k")
+    members = grp["_i"].agg(list)
+    tmin_group = grp["_tmin"].max()
+    worst = worst.sort_values("_i", kind="mergesort")
+    pick = worst["_i"].to_numpy()
+    sel = pred.iloc[pick]
+    fx = fold[pick]
+    level = np.where(np.maximum(fx, 1 / fx) >= f_high[pick], 2, np.where(np.maximum(fx, 1 / fx) >= f_mod[pick], 1, 0))
     severity = severity_from(level, sel["stage"].to_numpy())
-    min_inc = _min_incubation(sel, sel, tol[idx])
-    thumb = mult[idx] * rt[idx]
-    recommended = np.fmax(min_inc, thumb)
-    lower_bound = sel["rt_lower_bound"].fillna(False).astype(bool).to_numpy() if "rt_lower_bound" in sel.columns else np.zeros(idx.size, bool)
+    rt = 1.0 / koff
+    lower_bound = sel["rt_lower_bound"].fillna(False).astype(bool).to_numpy() if "rt_lower_bound" in sel.columns else np.zeros(pick.size, bool)
+    pre = _num(sel, "preincubation_s")
+    suggestions = assay_suggestions(pred, set(pred["compound_id"].tolist()))
     records = []
-    names = ["compound_id", "stage", "assay", "readout", "value_M", "fold_shift_low", "fold_shift_high", "note",
-             "corrected_affinity_M", "potency_id", "kinetic_measurement_id", "simulated_as"]
+    names = ["compound_id", "stage", "assay", "readout", "value_M", "fold_shift_low", "fold_shift_high", "note", "corrected_affinity_M",
+             "potency_id", "kinetic_measurement_id", "simulated_as", "tracer_conc_M", "tracer_kd_M", "tracer_residence_time_s"]
+    all_ids = _num(pred, "potency_id")
     for k, r in enumerate(_rows(sel, names)):
-        i = idx[k]
+        i = pick[k]
+        key = worst["_k"].iloc[k]
+        group = members[key]
         f, lo, hi = fold[i], r.fold_shift_low, r.fold_shift_high
+        tol = tol_all[i]
+        min_inc = float(tmin_group[key])
+        thumb = mult[i] * rt[i]
+        beyond = np.isfinite(min_inc) and min_inc > max_inc[i]
         rt_text = ("≥ " if lower_bound[k] else "") + fmt_time(rt[i])
-        at_least = "at least " if lower_bound[k] else ""
         note = f"; {r.note}" if r.note else ""
-        msg = (
-            f"{r.assay} {r.readout} {fmt_conc(r.value_M)} after {fmt_time(t[i])} is predicted to read "
-            f"{at_least}{fmt_fold(f)} too weak{_fmt_ci(lo, hi, fmt_fold)} for residence time {rt_text}: the incubation is "
-            f"{fmt_fold(t[i] / rt[i])} RT (rule ≥ {mult[i]:g}× RT); equilibrium {r.readout} ≈ {fmt_conc(r.corrected_affinity_M)}; "
-            f"reads within {tol[i]:g}-fold only after {fmt_time(min_inc[k])}{note}"
-        )
-        prompt = (
-            f"Re-run {r.assay} with ≥ {fmt_time(recommended[k])} incubation (or rank on the corrected "
-            f"{fmt_conc(r.corrected_affinity_M)}) before the {next_stage(r.stage)} decision"
-        )
+        pre_text = f" after {fmt_time(pre[k])} pre-incubation" if np.isfinite(pre[k]) and pre[k] > 0 else ""
+        others = ""
+        if len(group) > 1:
+            times = sorted({float(t[j]) for j in group if j != i})
+            others = f"; {len(group) - 1} more reading(s) of this assay ({', '.join(fmt_time(x) for x in times)}) also fall outside {tol:g}-fold"
+        ids = sorted(int(all_ids[j]) for j in group if np.isfinite(all_ids[j]))
+        if weak[i]:
+            rule, caution = "affinity-underestimate", CAUTION_AFFINITY
+            msg = (
+                f"{r.assay} {r.readout} {fmt_conc(r.value_M)} after {fmt_time(t[i])}{pre_text} is predicted to read "
+                f"{'at least ' if lower_bound[k] else ''}{fmt_fold(f)} too weak{_fmt_ci(lo, hi, fmt_fold)} for residence time {rt_text} "
+                f"(incubation {fmt_fold(t[i] / rt[i])} RT); equilibrium {r.readout} ≈ {fmt_conc(r.corrected_affinity_M)}; "
+                f"reads within {tol:g}-fold only after {fmt_time(min_inc)}{others}{note}"
+            )
+        else:
+            rule, caution = "affinity-overestimate", CAUTION_OVERESTIMATE
+            tracer = ""
+            if r.simulated_as == "competition":
+                L, kd_t, rt_t = float(r.tracer_conc_M), float(r.tracer_kd_M), float(r.tracer_residence_time_s)
+                tracer = (f": the tracer (RT {fmt_time(rt_t)}, {fmt_conc(L)} = {fmt_fold(L / kd_t)} its KD) has not equilibrated when read, "
+                          "so the compound looks tighter than it is")
+            msg = (
+                f"{r.assay} {r.readout} {fmt_conc(r.value_M)} after {fmt_time(t[i])}{pre_text} is predicted to read "
+                f"{fmt_fold(1 / f)} too potent{_fmt_ci(1 / hi if hi == hi else hi, 1 / lo if lo == lo else lo, fmt_fold)}{tracer}; "
+                f"equilibrium {r.readout} ≈ {fmt_conc(r.corrected_affinity_M)} (residence time {rt_text}); reads within {tol:g}-fold "
+                f"only after {fmt_time(min_inc)}{others}{note}"
+            )
+        if beyond:
+            method = suggestions.get(r.compound_id) or suggest_assay(set())
+            prompt = (
+                f"{r.assay} would need ≥ {fmt_time(min_inc)} to read within {tol:g}-fold, beyond its practical maximum of "
+                f"{fmt_time(max_inc[i])}: rank on a kinetic method ({method}) or on the corrected {fmt_conc(r.corrected_affinity_M)} "
+                f"before the {next_stage(r.stage)} decision"
+            )
+        else:
+            prompt = (
+                f"Re-run {r.assay} with ≥ {fmt_time(min_inc)} incubation (or rank on the corrected "
+                f"{fmt_conc(r.corrected_affinity_M)}) before the {next_stage(r.stage)} decision"
+            )
         records.append({
-            "compound_id": r.compound_id, "rule": "affinity-underestimate", "severity": severity[k],
-            "message": msg, "prompt": prompt, "caution": CAUTION_AFFINITY,
+            "compound_id": r.compound_id, "rule": rule, "severity": severity[k],
+            "message": msg, "prompt": prompt, "caution": caution,
             "data": _data(
                 likely=False, evidence="residence-time", potency_id=r.potency_id,
                 kinetic_measurement_id=r.kinetic_measurement_id, assay=r.assay, readout=r.readout,
-                value_M=r.value_M, incubation_s=t[i], residence_time_s=rt[i], residence_time_is_lower_bound=bool(lower_bound[k]),
+                value_M=r.value_M, incubation_s=t[i], preincubation_s=pre[k], residence_time_s=rt[i],
+                residence_time_is_lower_bound=bool(lower_bound[k]),
                 fold_shift=f, fold_shift_ci95=[lo, hi] if math.isfinite(lo) or math.isfinite(hi) else None,
-                corrected_affinity_M=r.corrected_affinity_M, min_incubation_s=min_inc[k],
-                rule_of_thumb_incubation_s=thumb[k], recommended_incubation_s=recommended[k],
+                corrected_affinity_M=r.corrected_affinity_M, min_incubation_s=min_inc,
+                rule_of_thumb_incubation_s=thumb, recommended_incubation_s=None if beyond else min_inc,
+                max_incubation_s=max_inc[i], kinetic_method_recommended=bool(beyond),
+                potency_ids=ids, n_readings=len(group), direction="too-weak" if weak[i] else "too-potent",
                 simulated_as=r.simulated_as, approximation=r.note or None,
             ),
         })
@@ -446,12 +414,28 @@ def check_affinity_underestimate(
 
 
 # ----------------------------------------------------------------------------- affinity-underestimate (likely)
-def ki_shift_outcome(ratio, *, ki_shift_threshold=6.0, no_shift_ratio=1.5) -> np.ndarray:
-    """``'shift'`` above the threshold, ``'no-shift'`` below ``no_shift_ratio``, else ``'inconclusive'``."""
+def ki_shift_outcome(ratio, *, ki_shift_threshold=6.0, no_shift_ratio=1.5, short_incubation=None, long_incubation=None) -> np.ndarray:
+    """``'shift'``, ``'no-shift'`` or ``'inconclusive'`` for Ki-shift ratios.
+
+    A one-step binder read in the linear regime shifts by at most
+    t_long/t_short, so the outcome is judged against that pair: ``'shift'``
+    when the ratio is beyond replicate scatter (> ``no_shift_ratio``) or above
+    ``ki_shift_threshold``; ``'no-shift'`` only when the ratio is below
+    ``no_shift_ratio`` AND the pair could have shown a shift (t_long/t_short
+    above ``no_shift_ratio`` squared, so that a slow binder's shift would
+    clear the scatter band); everything else ``'inconclusive'``.  Without the
+    incubation times the pair is assumed able to show a shift.
+    """
     r = np.asarray(ratio, dtype=float)
     thr = np.asarray(ki_shift_threshold, dtype=float)
     none = np.asarray(no_shift_ratio, dtype=float)
-    return np.where(r > thr, "shift", np.where(r < none, "no-shift", "inconclusive")).astype(object)
+    if short_incubation is None or long_incubation is None:
+        allowed = np.full(r.shape, np.inf)
+    else:
+        allowed = np.asarray(long_incubation, dtype=float) / np.asarray(short_incubation, dtype=float)
+        allowed = np.where(np.isfinite(allowed), allowed, np.inf)
+    can_show = allowed > none ** 2
+    return np.where((r > thr) | (r > none), "shift", np.where((r < none) & can_show, "no-shift", "inconclusive")).astype(object)
 
 
 def check_ki_shift(
@@ -459,6 +443,7 @@ def check_ki_shift(
     *,
     ki_shift_threshold=6.0,
     no_shift_ratio=1.5,
+    fold_moderate=3.0,
     fold_high=10.0,
     kon_low=1e5,
     kon_high=1e8,
@@ -472,61 +457,88 @@ def check_ki_shift(
     the residence-time bounds), ``source`` (``potency`` or ``fit``) and the ids
     ``potency_ids`` / ``time_course_id`` / ``kinetic_measurement_id``.
 
-    Fires when ``ratio > ki_shift_threshold`` (common practice: ~6 singles out
-    slow dissociators).  Evidence level 2 from ``fold_high`` up, else 1; capped
-    at moderate before candidate.  Where the long potency is known, the message
-    gives the residence-time interval consistent with the shift and a kon in
-    ``[kon_low, kon_high]`` (:func:`~tracker.kinetics.assay.residence_time_bounds`).
+    A one-step binder read in the linear regime shifts by at most
+    t_long/t_short (30 min vs 3 h: 6x; 1 h vs 4 h: 4x; 15 min vs 1 h: 4x), so
+    a fixed threshold would be blind for such pairs.  The shift is judged
+    against the pair instead: it fires when the ratio exceeds replicate
+    scatter (``no_shift_ratio``, common practice ~1.5-fold) or
+    ``ki_shift_threshold``.  The message states the residence-time interval
+    the shift implies (:func:`~tracker.kinetics.assay.residence_time_bounds`,
+    alone and with kon in ``[kon_low, kon_high]``), and says when the data
+    imply a kon outside that range rather than calling them inconsistent.
+    Evidence level: 2 when the ratio reaches ``fold_high`` or the scatter
+    band reaches the pair's maximum (the long read may itself be far from
+    equilibrium), 1 from ``fold_moderate`` or ``ki_shift_threshold``, else 0;
+    capped at moderate before candidate.
     """
     n = len(pairs)
     if n == 0:
         return _empty()
     ratio = _num(pairs, "ratio")
     thr = _col(ki_shift_threshold, n)
-    fires = np.isfinite(ratio) & (ratio > thr)
+    none = _col(no_shift_ratio, n)
+    t_s_all = _num(pairs, "incubation_short_s")
+    t_l_all = _num(pairs, "incubation_long_s")
+    outcome = ki_shift_outcome(ratio, ki_shift_threshold=thr, no_shift_ratio=none, short_incubation=t_s_all, long_incubation=t_l_all)
+    fires = np.isfinite(ratio) & (outcome == "shift")
     if not fires.any():
         return _empty()
     idx = np.nonzero(fires)[0]
     sel = pairs.iloc[idx]
-    f_high = _col(fold_high, n)[idx]
-    level = np.where(ratio[idx] >= f_high, 2, 1)
+    rx = ratio[idx]
+    t_s = t_s_all[idx]
+    t_l = t_l_all[idx]
+    allowed = np.where(np.isfinite(t_l / t_s), t_l / t_s, np.inf)
+    tol_r = none[idx]
+    at_max = rx * tol_r >= allowed
+    level = np.where((rx >= _col(fold_high, n)[idx]) | at_max, 2,
+                     np.where((rx >= _col(fold_moderate, n)[idx]) | (rx >= thr[idx]), 1, 0))
     severity = severity_from(level, sel["stage"].to_numpy(), likely=True)
-    t_s = _num(sel, "incubation_short_s")
-    t_l = _num(sel, "incubation_long_s")
     v_l = _num(sel, "value_long_M")
     k_lo, k_hi = _col(kon_low, n)[idx], _col(kon_high, n)[idx]
     rt_lo = np.full(idx.size, np.nan)
     rt_hi = np.full(idx.size, np.nan)
-    alone = np.zeros(idx.size, bool)
+    r_lo_rt = np.full(idx.size, np.nan)
+    r_hi_rt = np.full(idx.size, np.nan)
+    verdict = np.full(idx.size, "", dtype=object)
     ok = np.isfinite(t_s) & np.isfinite(t_l) & (t_l > t_s) & (t_s > 0) & np.isfinite(v_l) & (v_l > 0)
-    for lo_k, hi_k in set(zip(k_lo[ok], k_hi[ok])):  # one vectorised call per kon range
-        m = ok & (k_lo == lo_k) & (k_hi == hi_k)
-        b = residence_time_bounds(ratio[idx][m], t_s[m], t_l[m], v_l[m], kon_range=(lo_k, hi_k),
-                                  ratio_tolerance=float(np.mean(_col(no_shift_ratio, n)[idx][m])))
-        rt_lo[m] = np.where(b.consistent, b.rt_low, b.rt_from_ratio_low)
-        rt_hi[m] = np.where(b.consistent, b.rt_high, b.rt_from_ratio_high)
-        alone[m] = ~b.consistent
+    for lo_k, hi_k, tr in set(zip(k_lo[ok], k_hi[ok], tol_r[ok])):  # one vectorised call per kon range and tolerance
+        m = ok & (k_lo == lo_k) & (k_hi == hi_k) & (tol_r == tr)
+        b = residence_time_bounds(rx[m], t_s[m], t_l[m], v_l[m], kon_range=(lo_k, hi_k), ratio_tolerance=float(tr))
+        rt_lo[m], rt_hi[m] = b.rt_low, b.rt_high
+        r_lo_rt[m], r_hi_rt[m] = b.rt_from_ratio_low, b.rt_from_ratio_high
+        verdict[m] = np.asarray(b.verdict, dtype=object)
     r_lo = _num(sel, "ratio_low")
     r_hi = _num(sel, "ratio_high")
     records = []
     names = ["compound_id", "stage", "assay", "source", "potency_ids", "time_course_id", "kinetic_measurement_id"]
+    span = lambda a, b: (f"{fmt_time(a)} to {fmt_time(b)}" if np.isfinite(b) else f"≥ {fmt_time(a)}")  # noqa: E731
     for k, r in enumerate(_rows(sel, names)):
         when = ""
         if np.isfinite(t_s[k]) and np.isfinite(t_l[k]):
             when = f" after {fmt_time(t_s[k])} than after {fmt_time(t_l[k])}"
+        pair = (f", {'at' if at_max[k] else 'against'} the {fmt_fold(allowed[k])} a one-step binder can show between these incubations"
+                if np.isfinite(allowed[k]) else "")
         rt_text = ""
-        if np.isfinite(rt_lo[k]):
-            span = f"{fmt_time(rt_lo[k])} to {fmt_time(rt_hi[k])}" if np.isfinite(rt_hi[k]) else f"≥ {fmt_time(rt_lo[k])}"
-            if alone[k]:
-                rt_text = (f"; residence time {span} from the shift alone (no kon in {_fmt.sig(k_lo[k])}–{_fmt.rate2(k_hi[k])} fits "
-                           "this potency too: kon may be unusual or the long read not at equilibrium)")
-            else:
-                rt_text = f"; consistent with residence time {span} (kon {_fmt.sig(k_lo[k])}–{_fmt.rate2(k_hi[k])})"
+        kon_range = f"kon {_fmt.sig(k_lo[k])}–{_fmt.rate2(k_hi[k])}"
+        if verdict[k] == "consistent":
+            rt_text = f"; the evidence implies residence time {span(rt_lo[k], rt_hi[k])} ({kon_range})"
+        elif verdict[k] == "kon-below-range":
+            rt_text = (f"; the shift alone implies residence time {span(r_lo_rt[k], r_hi_rt[k])}, which with this potency needs a kon "
+                       f"below {_fmt.rate2(k_lo[k])} (slower association than the assumed {kon_range}): strongly slow binding")
+        elif verdict[k] == "kon-above-range":
+            rt_text = (f"; the shift alone implies residence time {span(r_lo_rt[k], r_hi_rt[k])}, which with this potency needs a kon "
+                       f"above {_fmt.rate2(k_hi[k])}: check the long-incubation value and its units")
+        elif verdict[k] == "ratio-beyond-one-step":
+            rt_text = (f"; the shift is larger than a one-step binder can show between these times (at most {fmt_fold(allowed[k])}): "
+                       "suspect a two-step (induced-fit) binder, compound loss or assay drift")
+        elif np.isfinite(r_lo_rt[k]):
+            rt_text = f"; the shift alone implies residence time {span(r_lo_rt[k], r_hi_rt[k])}"
         eq = f"; rank on the {fmt_time(t_l[k])} value ({fmt_conc(v_l[k])}) or tighter" if np.isfinite(v_l[k]) and np.isfinite(t_l[k]) else ""
         msg = (
-            f"likely underestimated: {r.assay} reads {fmt_fold(ratio[idx][k])} weaker{when}"
-            f"{_fmt_ci(r_lo[k], r_hi[k], fmt_fold)}, above the {thr[idx][k]:g}× Ki-shift threshold for slow "
-            f"dissociation; residence time not measured{rt_text}{eq}"
+            f"likely underestimated: {r.assay} reads {fmt_fold(rx[k])} weaker{when}"
+            f"{_fmt_ci(r_lo[k], r_hi[k], fmt_fold)}{pair}, beyond the {tol_r[k]:g}-fold replicate scatter: slow binding; "
+            f"residence time not measured{rt_text}{eq}"
         )
         prompt = f"Measure residence time before the {next_stage(r.stage)} decision; until then do not rank on short-incubation potency"
         records.append({
@@ -534,9 +546,12 @@ def check_ki_shift(
             "message": msg, "prompt": prompt, "caution": CAUTION_AFFINITY,
             "data": _data(
                 likely=True, evidence="ki-shift", source=r.source or "potency", assay=r.assay,
-                ki_shift_ratio=ratio[idx][k], ki_shift_ratio_ci95=[r_lo[k], r_hi[k]] if np.isfinite(r_lo[k]) else None,
-                ki_shift_threshold=thr[idx][k], incubation_short_s=t_s[k], incubation_long_s=t_l[k], value_long_M=v_l[k],
-                residence_time_low_s=rt_lo[k], residence_time_high_s=rt_hi[k] if np.isfinite(rt_hi[k]) else None,
+                ki_shift_ratio=rx[k], ki_shift_ratio_ci95=[r_lo[k], r_hi[k]] if np.isfinite(r_lo[k]) else None,
+                ki_shift_threshold=thr[idx][k], max_shift_for_pair=allowed[k] if np.isfinite(allowed[k]) else None,
+                incubation_short_s=t_s[k], incubation_long_s=t_l[k], value_long_M=v_l[k],
+                residence_time_low_s=rt_lo[k] if np.isfinite(rt_lo[k]) else r_lo_rt[k],
+                residence_time_high_s=(rt_hi[k] if np.isfinite(rt_lo[k]) else r_hi_rt[k]) if np.isfinite(rt_hi[k] if np.isfinite(rt_lo[k]) else r_hi_rt[k]) else None,
+                rt_bounds_verdict=verdict[k] or None,
                 potency_ids=_ids(r.potency_ids), time_course_id=r.time_course_id, kinetic_measurement_id=r.kinetic_measurement_id,
             ),
         })
@@ -603,21 +618,59 @@ def check_insurmountability(
     return _frame(records)
 
 
-def check_assay_floor(rows: pd.DataFrame, *, floor_factor=2.0) -> pd.DataFrame:
-    """``affinity-underestimate`` ("likely") for a potency sitting at its series' assay floor.
+def _floors(rows: pd.DataFrame) -> tuple[np.ndarray, np.ndarray]:
+    """(floor per row, competition mask): the tightest value each reading can report for its kon."""
+    n = len(rows)
+    value = _num(rows, "value_M")
+    t = _num(rows, "incubation_s")
+    pre = np.nan_to_num(_num(rows, "preincubation_s"), nan=0.0)
+    pre = np.where(pre > 0, pre, 0.0)
+    kon = _num(rows, "kon_per_M_s")
+    L = _num(rows, "tracer_conc_M")
+    kd_t = _num(rows, "tracer_kd_M")
+    rt_t = _num(rows, "tracer_residence_time_s")
+    fmt = rows["format"].astype(object).to_numpy()
+    readout = rows["readout"].astype(object).to_numpy()
+    ok = np.isfinite(value) & (value > 0) & np.isfinite(t) & (t > 0) & np.isfinite(kon) & (kon > 0)
+    tracer_ok = np.isfinite(L) & (L > 0) & np.isfinite(kd_t) & (kd_t > 0) & np.isfinite(rt_t) & (rt_t > 0)
+    comp = ok & (fmt == "competition-binding") & tracer_ok
+    sat = ok & ~comp
+    floor = np.full(n, np.nan)
+    if sat.any():
+        floor[sat] = assay_floor(kon[sat], t[sat] + pre[sat])
+    if comp.any():
+        floor[comp] = assay_floor(kon[comp], t[comp], format="competition", tracer_kd=kd_t[comp],
+                                  tracer_koff=1.0 / rt_t[comp], tracer_conc=L[comp], preincubation=pre[comp])
+        ic = comp & (readout == "IC50")
+        floor[ic] = floor[ic] * (1.0 + L[ic] / kd_t[ic])
+    return floor, comp
+
+
+def check_assay_floor(rows: pd.DataFrame, *, floor_factor=2.0, below_floor_factor=3.0) -> pd.DataFrame:
+    """Readings at (``affinity-underestimate``, "likely") or far below (``potency-below-floor``) the assay floor.
 
     ``rows``: one row per potency value with ``compound_id``, ``stage``,
     ``potency_id``, ``assay``, ``readout``, ``value_M``, ``incubation_s``,
-    ``format``, tracer columns, ``kon_per_M_s`` (the series' median measured
-    kon, else the assumed one) and ``kon_source`` (text).
+    ``format``, tracer columns, optional ``preincubation_s``,
+    ``kon_per_M_s`` (the series' median measured kon, else the assumed one)
+    and ``kon_source`` (text).
 
     The floor is the tightest apparent affinity an incubation can report, the
     value an infinitely slow dissociator reads: ln2/(kon t) for a one-step
     read, the Motulsky-Mahan/Cheng-Prusoff value for a described tracer
     competition (:func:`~tracker.kinetics.assay.assay_floor`); an IC50 read is
-    compared with the floor times (1 + L/Kd).  Fires when the value is within
-    ``floor_factor`` of the floor (design choice 2x).  Evidence level 0 (a
-    heuristic); the grader drops it when a Ki-shift comparison shows no shift.
+    compared with the floor times (1 + L/Kd).
+
+    * Within ``floor_factor`` of the floor (design choice 2x) and not far
+      below it: one ``affinity-underestimate`` finding per compound naming
+      every such reading.  More readings strengthen it: readings at the floor
+      at two or more incubation times (the value tracks 1/t, the signature
+      of a dissociation slower than the longest read) raise the evidence
+      level from 0 to 1.
+    * More than ``below_floor_factor`` below the floor: no compound with
+      that kon can read so tight, so the reading contradicts the kon used
+      (or the value, its unit or its incubation is wrong).  Reported as
+      ``potency-below-floor``, a data or kon question, never as slow binding.
     """
     n = len(rows)
     if n == 0:
@@ -625,52 +678,164 @@ def check_assay_floor(rows: pd.DataFrame, *, floor_factor=2.0) -> pd.DataFrame:
     value = _num(rows, "value_M")
     t = _num(rows, "incubation_s")
     kon = _num(rows, "kon_per_M_s")
+    factor = _col(floor_factor, n)
+    below_f = _col(below_floor_factor, n)
+    floor, comp = _floors(rows)
+    below = np.isfinite(floor) & (value * below_f < floor)
+    at = np.isfinite(floor) & (value <= factor * floor) & ~below
+    if not (at.any() or below.any()):
+        return _empty()
+    info = _rows(rows, ["compound_id", "stage", "assay", "readout", "kon_source", "potency_id"])
+    records = []
+    cids = rows["compound_id"].to_numpy(dtype=object)
+    for mask, rule in ((at, "affinity-underestimate"), (below, "potency-below-floor")):
+        if not mask.any():
+            continue
+        idx = np.nonzero(mask)[0]
+        order = pd.Series(idx).groupby(pd.Series(cids[idx]), sort=False)
+        for cid, members in order:
+            members = members.to_numpy()
+            first = members[np.argmin(value[members] / floor[members])]  # the reading closest to / farthest below its floor
+            r = info[first]
+            times = sorted({float(t[j]) for j in members})
+            items = [f"{info[j].assay} {info[j].readout} {fmt_conc(value[j])} after {fmt_time(t[j])} "
+                     f"({fmt_fold(value[j] / floor[j])} its floor {fmt_conc(floor[j])})" for j in members]
+            how = "tracer competition" if comp[first] else "ln2/(kon·t)"
+            ids = sorted(int(info[j].potency_id) for j in members if info[j].potency_id is not None)
+            if rule == "affinity-underestimate":
+                tracks = len(times) >= 2
+                level = 1 if tracks else 0
+                sev = severity_from(np.array([level]), np.array([r.stage], dtype=object), likely=True)[0]
+                strength = (f"; readings at {len(times)} incubation times all track the floor, the signature of a dissociation "
+                            "slower than the longest read" if tracks else "")
+                msg = (
+                    f"likely underestimated: {'; '.join(items)} sit at the assay floor ({how}, kon {_fmt.rate2(kon[first])}, "
+                    f"{r.kon_source}): a slow dissociator cannot read tighter at these incubations, so the true affinity may be "
+                    f"much tighter{strength}; residence time not measured"
+                )
+                prompt = (
+                    f"Re-test {r.assay} at a longer incubation (a Ki-shift check) or measure residence time before the "
+                    f"{next_stage(r.stage)} decision"
+                )
+                caution = CAUTION_AFFINITY
+                data = _data(likely=True, evidence="assay-floor", potency_id=r.potency_id, potency_ids=ids, assay=r.assay,
+                             readout=r.readout, value_M=value[first], incubation_s=t[first], assay_floor_M=floor[first],
+                             floor_ratio=value[first] / floor[first], floor_factor=factor[first], kon_per_M_s=kon[first],
+                             kon_source=r.kon_source, n_readings=len(members), n_incubations=len(times))
+            else:
+                sev = severity_from(np.array([0]), np.array([r.stage], dtype=object))[0]
+                msg = (
+                    f"{'; '.join(items)}: tighter than any compound with kon {_fmt.rate2(kon[first])} ({r.kon_source}) can read "
+                    f"at that incubation ({how}). This contradicts the kon used for the floor, or the value, its unit or its "
+                    "incubation is wrong; it is a data or kon question, not evidence of slow binding"
+                )
+                prompt = f"Check the value, unit and incubation of {r.assay}, or measure kon, before the {next_stage(r.stage)} decision"
+                caution = None
+                data = _data(potency_id=r.potency_id, potency_ids=ids, assay=r.assay, readout=r.readout, value_M=value[first],
+                             incubation_s=t[first], assay_floor_M=floor[first], floor_ratio=value[first] / floor[first],
+                             below_floor_factor=below_f[first], kon_per_M_s=kon[first], kon_source=r.kon_source)
+            records.append({"compound_id": cid, "rule": rule, "severity": sev, "message": msg, "prompt": prompt,
+                            "caution": caution, "data": data})
+    return _frame(records)
+
+
+def check_tight_binding(rows: pd.DataFrame, *, tight_binding_factor=2.0) -> pd.DataFrame:
+    """``tight-binding-limit``: a reading near the titration limit set by the target concentration in the well.
+
+    ``rows``: potency rows with ``compound_id``, ``stage``, ``potency_id``,
+    ``assay``, ``readout``, ``value_M``, ``format``, ``target_conc_M`` and the
+    tracer columns.  An IC50 cannot fall below half the active target
+    concentration [E]/2 (Morrison 1969, Biochim Biophys Acta 185:269-286,
+    volume and pages from memory; IC50 = Kapp + [E]/2, Copeland et al. 1995,
+    Bioorg Med Chem Lett 5:1947-1952); a Ki from a described tracer
+    competition has the limit [E]/2/(1 + L/Kd).  A reading within
+    ``tight_binding_factor`` of its limit (the issue's 2x) is a likely
+    underestimate: the true affinity may be much tighter than reported.
+    One finding per compound, naming every such reading.
+    """
+    n = len(rows)
+    if n == 0 or "target_conc_M" not in rows.columns:
+        return _empty()
+    e = _num(rows, "target_conc_M")
+    value = _num(rows, "value_M")
     L = _num(rows, "tracer_conc_M")
     kd_t = _num(rows, "tracer_kd_M")
-    rt_t = _num(rows, "tracer_residence_time_s")
     fmt = rows["format"].astype(object).to_numpy()
     readout = rows["readout"].astype(object).to_numpy()
-    factor = _col(floor_factor, n)
-    ok = np.isfinite(value) & (value > 0) & np.isfinite(t) & (t > 0) & np.isfinite(kon) & (kon > 0)
-    tracer_ok = np.isfinite(L) & (L > 0) & np.isfinite(kd_t) & (kd_t > 0) & np.isfinite(rt_t) & (rt_t > 0)
-    comp = ok & (fmt == "competition-binding") & tracer_ok
-    sat = ok & ~comp
-    floor = np.full(n, np.nan)
-    if sat.any():
-        floor[sat] = assay_floor(kon[sat], t[sat])
-    if comp.any():
-        floor[comp] = assay_floor(kon[comp], t[comp], format="competition", tracer_kd=kd_t[comp],
-                                  tracer_koff=1.0 / rt_t[comp], tracer_conc=L[comp])
-        ic = comp & (readout == "IC50")
-        floor[ic] = floor[ic] * (1.0 + L[ic] / kd_t[ic])
-    fires = np.isfinite(floor) & (value <= factor * floor)
+    limit = e / 2.0
+    cp = (fmt == "competition-binding") & (readout != "IC50") & np.isfinite(L) & (L > 0) & np.isfinite(kd_t) & (kd_t > 0)
+    limit = np.where(cp, limit / (1.0 + np.where(cp, L / np.where(cp, kd_t, 1.0), 0.0)), limit)
+    factor = _col(tight_binding_factor, n)
+    fires = np.isfinite(limit) & (limit > 0) & np.isfinite(value) & (value <= factor * limit)
     if not fires.any():
         return _empty()
     idx = np.nonzero(fires)[0]
-    sel = rows.iloc[idx]
-    severity = severity_from(np.zeros(idx.size, int), sel["stage"].to_numpy(), likely=True)
+    info = _rows(rows, ["compound_id", "stage", "assay", "readout", "potency_id"])
+    cids = rows["compound_id"].to_numpy(dtype=object)
     records = []
-    for k, r in enumerate(_rows(sel, ["compound_id", "stage", "assay", "readout", "kon_source", "potency_id"])):
-        i = idx[k]
-        how = "tracer competition" if comp[i] else "ln2/(kon·t)"
+    for cid, members in pd.Series(idx).groupby(pd.Series(cids[idx]), sort=False):
+        members = members.to_numpy()
+        first = members[np.argmin(value[members] / limit[members])]
+        r = info[first]
+        items = [f"{info[j].assay} {info[j].readout} {fmt_conc(value[j])} with {fmt_conc(e[j])} target in the well "
+                 f"({fmt_fold(value[j] / limit[j])} the limit {fmt_conc(limit[j])})" for j in members]
+        sev = severity_from(np.array([1]), np.array([r.stage], dtype=object), likely=True)[0]
         msg = (
-            f"likely underestimated: {r.assay} {r.readout} {fmt_conc(value[i])} after {fmt_time(t[i])} sits at "
-            f"{fmt_fold(value[i] / floor[i])} the assay floor {fmt_conc(floor[i])} ({how}, kon {_fmt.rate2(kon[i])}, "
-            f"{r.kon_source}): a slow dissociator cannot read tighter at this incubation, so the true affinity may be "
-            "much tighter; residence time not measured"
+            f"likely underestimated (tight binding): {'; '.join(items)}: a potency within {factor[first]:g}× of the titration "
+            "limit ([E]/2 for an IC50, Morrison) reports the target concentration, not the affinity; the true affinity may be "
+            "much tighter"
         )
-        prompt = (
-            f"Re-test {r.assay} at a longer incubation (a Ki-shift check) or measure residence time before the "
-            f"{next_stage(r.stage)} decision"
+        prompt = (f"Refit {r.assay} with the Morrison tight-binding equation (krt fit morrison) or re-run it at a lower target "
+                  f"concentration before the {next_stage(r.stage)} decision")
+        ids = sorted(int(info[j].potency_id) for j in members if info[j].potency_id is not None)
+        records.append({
+            "compound_id": cid, "rule": "tight-binding-limit", "severity": sev, "message": msg, "prompt": prompt,
+            "caution": CAUTION_AFFINITY,
+            "data": _data(likely=True, evidence="tight-binding", potency_id=r.potency_id, potency_ids=ids, assay=r.assay,
+                          readout=r.readout, value_M=value[first], target_conc_M=e[first], titration_limit_M=limit[first],
+                          limit_ratio=value[first] / limit[first], tight_binding_factor=factor[first]),
+        })
+    return _frame(records)
+
+
+def check_conflicting_kinetics(kinetics: pd.DataFrame, runs: pd.DataFrame, stages: pd.Series, *, conflict_fold=3.0) -> pd.DataFrame:
+    """``conflicting-kinetics``: kinetic runs of one compound whose residence times differ beyond ``conflict_fold``.
+
+    ``kinetics``: the evidence model's selection (one row per compound, with
+    ``conflict``, ``koff_spread_fold``, ``koff_per_s``,
+    ``kinetic_measurement_id``); ``runs``: every run (``compound_id``,
+    ``kinetic_measurement_id``, ``method``, ``residence_time_s``);
+    ``stages``: compound_id -> stage.  Evidence level 1 (a decision on the
+    data is needed), scored with the stage.  Until a lead resolves the
+    conflict the grade uses the conservative value: the longest residence
+    time, which predicts the largest potency artefact.
+    """
+    if kinetics is None or kinetics.empty:
+        return _empty()
+    c = kinetics[kinetics["conflict"].fillna(False).astype(bool)]
+    if c.empty:
+        return _empty()
+    fold = _col(conflict_fold, len(c)) if not isinstance(conflict_fold, pd.Series) else c["compound_id"].map(conflict_fold).fillna(3.0).to_numpy(float)
+    st_ = c["compound_id"].map(stages).to_numpy(dtype=object)
+    sev = severity_from(np.ones(len(c), int), st_)
+    records = []
+    for k, r in enumerate(c.itertuples(index=False)):
+        mine = runs[runs["compound_id"] == r.compound_id].sort_values("residence_time_s")
+        items = [f"{fmt_time(v)} ({m} #{int(i)})" for v, m, i in zip(mine["residence_time_s"], mine["method"], mine["kinetic_measurement_id"])]
+        msg = (
+            f"{len(mine)} kinetic measurements disagree: residence times {', '.join(items)} differ {fmt_fold(r.koff_spread_fold)}, "
+            f"beyond the {fold[k]:g}-fold conflict limit; until resolved the grade uses the longest, {fmt_time(1 / r.koff_per_s)} "
+            "(the riskier value for reading potency)"
         )
         records.append({
-            "compound_id": r.compound_id, "rule": "affinity-underestimate", "severity": severity[k],
-            "message": msg, "prompt": prompt, "caution": CAUTION_AFFINITY,
-            "data": _data(
-                likely=True, evidence="assay-floor", potency_id=r.potency_id, assay=r.assay,
-                readout=r.readout, value_M=value[i], incubation_s=t[i], assay_floor_M=floor[i],
-                floor_ratio=value[i] / floor[i], floor_factor=factor[i], kon_per_M_s=kon[i], kon_source=r.kon_source,
-            ),
+            "compound_id": r.compound_id, "rule": "conflicting-kinetics", "severity": sev[k], "message": msg,
+            "prompt": (f"Resolve which kinetic measurement stands (repeat it, or retire the faulty run) before the "
+                       f"{next_stage(st_[k])} decision"),
+            "caution": None,
+            "data": _data(kinetic_measurement_ids=[int(i) for i in mine["kinetic_measurement_id"]],
+                          residence_times_s=[float(v) for v in mine["residence_time_s"]], spread_fold=r.koff_spread_fold,
+                          conflict_fold=fold[k], conservative_residence_time_s=1 / r.koff_per_s,
+                          kinetic_measurement_id=r.kinetic_measurement_id),
         })
     return _frame(records)
 

@@ -25,10 +25,11 @@ from typing import Any, Mapping
 from ..errors import InputError
 
 #: Identifier of the shipped rules and defaults; recorded with every gate decision.
-RULESET_VERSION = "krt-rules-1"
+RULESET_VERSION = "krt-rules-2"
 
 #: Rule ids (ours).  ``stage-skip`` is not a rule but a waivable gate condition.
-RULES: tuple[str, ...] = ("residence-time-unmeasured", "affinity-underestimate", "duration-mismatch")
+RULES: tuple[str, ...] = ("residence-time-unmeasured", "affinity-underestimate", "duration-mismatch", "conflicting-kinetics",
+                          "affinity-overestimate", "tight-binding-limit", "potency-below-floor")
 STAGE_SKIP = "stage-skip"
 WAIVABLE: tuple[str, ...] = RULES + (STAGE_SKIP,)
 
@@ -80,6 +81,29 @@ class RuleConfig:
     kon_low_per_M_s: float = 1e5
     kon_high_per_M_s: float = 1e8
 
+    #: a potency this many times tighter than the assay floor contradicts the kon used for the floor
+    #: (design choice: beyond the 2-3x replicate scatter of potency assays, common practice, so
+    #: the reading cannot be a noisy floor value; reported as a data or kon question)
+    below_floor_factor: float = 3.0
+
+    # ---- affinity-underestimate / affinity-overestimate, the recommended incubation
+    #: longest incubation an assay can practically run when the potency row gives no
+    #: max_incubation (common practice: plate assays run up to overnight, ~16-24 h, before
+    #: enzyme, cell or reagent stability fails); beyond it a kinetic method is recommended
+    max_incubation_s: float = 86400.0
+
+    # ---- conflicting-kinetics
+    #: kinetic measurements of one compound whose residence times differ by more than this
+    #: fold conflict (design choice: 3x is beyond the ~2x between-run scatter of kinetic
+    #: methods such as SPR or competition kinetics, common practice)
+    conflict_fold: float = 3.0
+
+    # ---- tight-binding-limit
+    #: a reading within this factor of the titration limit ([E]/2 for an IC50; Morrison 1969,
+    #: Biochim Biophys Acta 185:269-286, volume and pages from memory) is a likely underestimate
+    #: (design choice: 2x, as the issue of this rule states)
+    tight_binding_factor: float = 2.0
+
     # ---- duration-mismatch
     #: engagement threshold used when a program sets time limits but no threshold
     #: (design choice: half occupancy, the conventional midpoint; say so in the finding)
@@ -118,9 +142,13 @@ _LIMITS: dict[str, tuple[float, float, str]] = {
     "kon_low_per_M_s": (1.0, 1e10, "a kon in /M/s up to the diffusion limit 1e10"),
     "kon_high_per_M_s": (1.0, 1e10, "a kon in /M/s up to the diffusion limit 1e10"),
     "default_engagement_threshold": (0.0, 1.0, "an occupancy between 0 and 1"),
+    "below_floor_factor": (1.0, 1e6, "a factor >= 1"),
+    "max_incubation_s": (1.0, 365 * 86400.0, "a time in s"),
+    "conflict_fold": (1.0, 1e6, "a fold > 1"),
+    "tight_binding_factor": (1.0, 1e3, "a factor >= 1"),
 }
 _STRICT_LOW = {"fold_tolerance", "fold_moderate", "fold_high", "ki_shift_threshold", "no_shift_ratio",
-               "insurmountable_fraction", "insurmountable_strong_fraction", "default_engagement_threshold"}
+               "insurmountable_fraction", "insurmountable_strong_fraction", "default_engagement_threshold", "conflict_fold"}
 
 
 def validate_values(values: Mapping[str, float]) -> list[str]:
@@ -172,7 +200,7 @@ def effective(global_override: Mapping[str, Any] | None = None, program_override
 
 
 def version_label(global_version: int | None = None, program_id: int | None = None, program_version: int | None = None) -> str:
-    """Rule-set version as recorded with decisions: ``krt-rules-1``, ``krt-rules-1+g2+p7v3``."""
+    """Rule-set version as recorded with decisions: ``krt-rules-2``, ``krt-rules-2+g2+p7v3``."""
     label = RULESET_VERSION
     if global_version:
         label += f"+g{int(global_version)}"

@@ -51,20 +51,21 @@ from .checks import (
     FINDING_COLUMNS,
     check_affinity_underestimate,
     check_assay_floor,
+    check_conflicting_kinetics,
     check_duration_mismatch,
     check_insurmountability,
     check_ki_shift,
     check_residence_time_unmeasured,
+    check_tight_binding,
     fmt_fold,
     ki_shift_outcome,
     assay_suggestions,
-    predict_apparent,
 )
 from .config import DEFAULTS, FIELD_NAMES, RULES, SEVERITY_RANK, RuleConfig, version_label
+from .evidence import QUALITATIVE_METHODS, READING_COLUMNS, select_kinetics, predict_readings, summarise
 
 __all__ = ["Portfolio", "GradeResult", "grade_frames", "parse_fit", "assay_key", "QUALITATIVE_METHODS", "GRADE_ORDER"]
 
-QUALITATIVE_METHODS = ("ki-shift", "insurmountability")
 GRADE_ORDER = ("high", "moderate", "low", "clear")
 _RULE_ORDER = {r: i for i, r in enumerate(RULES)}
 _AFFINITY_READOUTS = ("KD", "Ki", "Kb")
@@ -124,6 +125,11 @@ class GradeResult:
     findings: pd.DataFrame
     potency: pd.DataFrame = field(default_factory=pd.DataFrame)
     ruleset_versions: dict[str, str] = field(default_factory=dict)
+    #: the evidence model's kinetics per compound and every kinetic run (tracker.rules.evidence.select_kinetics)
+    kinetics: pd.DataFrame = field(default_factory=pd.DataFrame)
+    kinetic_runs: pd.DataFrame = field(default_factory=pd.DataFrame)
+    #: the inputs of the duration check, one row per compound (engagement tiles use the same)
+    duration: pd.DataFrame = field(default_factory=pd.DataFrame)
 
     def findings_of(self, compound_id: int) -> list[dict[str, Any]]:
         f = self.findings[self.findings["compound_id"] == compound_id]
@@ -246,36 +252,23 @@ def _cfg(frame: pd.DataFrame, table: pd.DataFrame, name: str) -> np.ndarray:
 
 
 # ----------------------------------------------------------------------------- the pass
-def _select_kinetics(kin: pd.DataFrame) -> tuple[pd.DataFrame, pd.DataFrame]:
-    """(one measured kinetics row per compound, the qualitative fit rows)."""
-    cols = ["compound_id", "kinetic_measurement_id", "koff_per_s", "kon_per_M_s", "kd_M", "koff_low_per_s", "koff_high_per_s",
-            "method", "rt_lower_bound"]
+def _select_kinetics(kin: pd.DataFrame, conflict_fold=3.0):
+    """(the evidence model's selection, the qualitative fit rows)."""
     if kin is None or kin.empty:
-        return _empty(cols), pd.DataFrame()
+        sel = select_kinetics(None)
+        return sel, pd.DataFrame()
     kin = kin.copy()
     parsed = _parse_column(kin, "fit_json")
-    kin["_fit_method"] = parsed["method"].reindex(kin.index) if "method" in parsed else None
-    kin["rt_lower_bound"] = parsed["rt_lower_bound"].reindex(kin.index).fillna(False).astype(bool) if "rt_lower_bound" in parsed else False
-    qual_mask = kin["_fit_method"].isin(QUALITATIVE_METHODS)
+    methods = parsed["method"].reindex(kin.index) if "method" in parsed else pd.Series(None, index=kin.index, dtype=object)
+    lower = parsed["rt_lower_bound"].reindex(kin.index) if "rt_lower_bound" in parsed else None
+    sel = select_kinetics(kin, fit_methods=methods, rt_lower_bound=lower, conflict_fold=conflict_fold)
+    qual_mask = sel.qualitative_mask
     qual = parsed.loc[parsed.index.intersection(kin.index[qual_mask])].copy() if qual_mask.any() else pd.DataFrame()
     if not qual.empty:
         qual["compound_id"] = kin.loc[qual.index, "compound_id"]
         qual["kinetic_measurement_id"] = kin.loc[qual.index, "id"]
         qual["time_course_id"] = kin.loc[qual.index, "time_course_id"] if "time_course_id" in kin.columns else np.nan
-    measured = kin[~qual_mask & (pd.to_numeric(kin["koff_per_s"], errors="coerce") > 0)]
-    order = measured.assign(_d=measured["measured_on"] if "measured_on" in measured.columns else pd.NaT)
-    order = order.sort_values(["compound_id", "_d", "id"], na_position="first", kind="mergesort")
-    latest = order.drop_duplicates("compound_id", keep="last").rename(columns={"id": "kinetic_measurement_id"})
-    for c in cols:
-        if c not in latest.columns:
-            latest[c] = np.nan
-    latest = latest[cols].copy()
-    kon = latest["kon_per_M_s"].astype(float)
-    kd = latest["kd_M"].astype(float)
-    koff = latest["koff_per_s"].astype(float)
-    latest["kon_per_M_s"] = np.where(np.isfinite(kon) & (kon > 0), kon, np.where(np.isfinite(kd) & (kd > 0), koff / kd, np.nan))
-    latest["kd_M"] = np.where(np.isfinite(kd) & (kd > 0), kd, koff / latest["kon_per_M_s"])
-    return latest.reset_index(drop=True), qual
+    return sel, qual
 
 
 _TIME_TOKEN = re.compile(r"(?<![A-Za-z0-9.])\d+(?:\.\d+)?\s*(?:s|sec|secs|m|min|mins|minutes?|h|hr|hrs|hours?|d|days?)(?![A-Za-z0-9])",
@@ -405,9 +398,12 @@ def _ki_shift_findings(no_rt: pd.DataFrame, fits: pd.DataFrame, comp: pd.DataFra
         return [], set()
     pairs = pairs.merge(comp[["compound_id", "program", "stage"]], on="compound_id", how="inner")
     thr, none = _cfg(pairs, table, "ki_shift_threshold"), _cfg(pairs, table, "no_shift_ratio")
-    found = check_ki_shift(pairs, ki_shift_threshold=thr, no_shift_ratio=none, fold_high=_cfg(pairs, table, "fold_high"),
+    found = check_ki_shift(pairs, ki_shift_threshold=thr, no_shift_ratio=none, fold_moderate=_cfg(pairs, table, "fold_moderate"),
+                           fold_high=_cfg(pairs, table, "fold_high"),
                            kon_low=_cfg(pairs, table, "kon_low_per_M_s"), kon_high=_cfg(pairs, table, "kon_high_per_M_s"))
-    outcome = ki_shift_outcome(pairs["ratio"].astype(float), ki_shift_threshold=thr, no_shift_ratio=none)
+    outcome = ki_shift_outcome(pairs["ratio"].astype(float), ki_shift_threshold=thr, no_shift_ratio=none,
+                               short_incubation=pairs["incubation_short_s"].astype(float),
+                               long_incubation=pairs["incubation_long_s"].astype(float))
     shifted = set(pairs.loc[outcome == "shift", "compound_id"])
     return [found], set(pairs.loc[outcome == "no-shift", "compound_id"]) - shifted
 
@@ -440,7 +436,7 @@ def _floor_findings(rows: pd.DataFrame, comp: pd.DataFrame, kin: pd.DataFrame, t
     n_k = fr["series_kon_n"].fillna(0).astype(int).to_numpy()
     fr["kon_source"] = [f"median of {k} measured in the series" if m else "assumed; no kon measured in the series"
                         for m, k in zip(measured, n_k)]
-    return check_assay_floor(fr, floor_factor=_cfg(fr, table, "floor_factor"))
+    return check_assay_floor(fr, floor_factor=_cfg(fr, table, "floor_factor"), below_floor_factor=_cfg(fr, table, "below_floor_factor"))
 
 
 def grade_frames(portfolio: Portfolio, configs: Mapping[str, RuleConfig] | None = None,
@@ -456,7 +452,10 @@ def grade_frames(portfolio: Portfolio, configs: Mapping[str, RuleConfig] | None 
     table = _config_table(programs, configs)
     versions = {p: (versions or {}).get(p, version_label()) for p in programs}
 
-    kin, qual_kin = _select_kinetics(portfolio.kinetics)
+    conflict_fold = comp.drop_duplicates("compound_id").set_index("compound_id")["program"].map(table["conflict_fold"]) \
+        if len(comp) and len(table) else 3.0
+    selection, qual_kin = _select_kinetics(portfolio.kinetics, conflict_fold)
+    kin = selection.chosen
     has_rt = set(kin["compound_id"].tolist())
 
     # ---- potency rows with compound context and (where measured) kinetics
@@ -464,13 +463,17 @@ def grade_frames(portfolio: Portfolio, configs: Mapping[str, RuleConfig] | None 
     if pot.empty:
         pot = pd.DataFrame(columns=["id", "compound_id", "assay", "readout", "value_M", "incubation_s", "format", "tracer_conc_M",
                                     "tracer_kd_M", "tracer_residence_time_s", "max_response_fraction"])
+    for c in _OPTIONAL_POTENCY:
+        if c not in pot.columns:
+            pot[c] = np.nan
     pot = pot.drop(columns=[c for c in ("program", "compound", "stage", "series") if c in pot.columns])
     pot = pot.merge(comp[["compound_id", "program", "series", "stage"]], on="compound_id", how="inner")
     pot = pot.rename(columns={"id": "potency_id"}).reset_index(drop=True)
+    keys_of = {a: assay_key(a) for a in pd.unique(pot["assay"].to_numpy(dtype=object))}
+    pot["reading_group"] = [keys_of[a] for a in pot["assay"].to_numpy(dtype=object)]
     with_rt = pot["compound_id"].isin(has_rt).to_numpy()
     rows = pot[with_rt].merge(kin, on="compound_id", how="left")
-    pred = predict_apparent(rows) if len(rows) else pd.DataFrame(
-        columns=["fold_shift", "fold_shift_low", "fold_shift_high", "corrected_affinity_M", "kd_used_M", "simulated_as", "note"])
+    pred = predict_readings(rows, tolerance=_cfg(rows, table, "fold_tolerance")) if len(rows) else pd.DataFrame(columns=READING_COLUMNS)
     rows = pd.concat([rows.reset_index(drop=True), pred.reset_index(drop=True)], axis=1)
     found = [check_affinity_underestimate(
         rows,
@@ -478,16 +481,24 @@ def grade_frames(portfolio: Portfolio, configs: Mapping[str, RuleConfig] | None 
         fold_tolerance=_cfg(rows, table, "fold_tolerance"),
         fold_moderate=_cfg(rows, table, "fold_moderate"),
         fold_high=_cfg(rows, table, "fold_high"),
+        max_incubation_s=_cfg(rows, table, "max_incubation_s"),
     )] if len(rows) else []
+    stages = comp.set_index("compound_id")["stage"]
+    found.append(check_conflicting_kinetics(kin, selection.runs, stages, conflict_fold=conflict_fold))
+    found.append(check_tight_binding(pot, tight_binding_factor=_cfg(pot, table, "tight_binding_factor")))
 
     # ---- qualitative evidence, compounds without a residence time only
     no_rt = pot[~with_rt]
     fits = _saved_fits(portfolio.time_courses, qual_kin, has_rt, comp)
     likely, no_shift = _ki_shift_findings(no_rt, fits, comp, table)
     likely.append(_insurmountability_findings(no_rt, fits, comp, table))
-    likely.append(_floor_findings(no_rt[~no_rt["compound_id"].isin(no_shift)], comp, kin, table))
+    floor = _floor_findings(no_rt, comp, kin, table)
+    below = floor[floor["rule"] == "potency-below-floor"] if not floor.empty else floor
+    # a Ki-shift pair that could have shown a shift and did not silences the floor heuristic (direct evidence wins)
+    likely.append(floor[(floor["rule"] != "potency-below-floor") & ~floor["compound_id"].isin(no_shift)] if not floor.empty else floor)
     likely = [f for f in likely if not f.empty]
     found += likely
+    found.append(below)
 
     # ---- residence-time-unmeasured (only lead-optimization and later can fire: text for those only)
     rt_frame = comp[["compound_id", "stage"]].copy()
@@ -504,8 +515,9 @@ def grade_frames(portfolio: Portfolio, configs: Mapping[str, RuleConfig] | None 
     found.append(check_residence_time_unmeasured(rt_frame))
 
     # ---- duration-mismatch
-    dm = _duration_frame(comp, portfolio.programs, kin, portfolio.pk, rows)
-    found.append(check_duration_mismatch(dm, default_engagement_threshold=_cfg(dm, table, "default_engagement_threshold")))
+    dm = _duration_frame(comp, portfolio.programs, _duration_kinetics(kin, selection.runs, portfolio.programs, comp), portfolio.pk, rows)
+    dm["default_engagement_threshold"] = _cfg(dm, table, "default_engagement_threshold")
+    found.append(check_duration_mismatch(dm, default_engagement_threshold=dm["default_engagement_threshold"].to_numpy(float)))
 
     # ---- combine
     found = [f for f in found if f is not None and not f.empty]
@@ -516,9 +528,36 @@ def grade_frames(portfolio: Portfolio, configs: Mapping[str, RuleConfig] | None 
         findings = findings.sort_values(["compound_id", "_rank", "_rule"], ascending=[True, False, True], kind="mergesort")
         findings = findings.drop(columns=["_rank", "_rule"]).reset_index(drop=True)
     summary = _summary(comp, findings, kin, pot, rows, versions)
-    potency_out = pot.merge(rows[["potency_id", "fold_shift", "fold_shift_low", "fold_shift_high", "corrected_affinity_M"]],
-                            on="potency_id", how="left") if len(rows) else pot.assign(fold_shift=np.nan, corrected_affinity_M=np.nan)
-    return GradeResult(summary, findings, potency_out, versions)
+    potency_out = pot.merge(rows[["potency_id"] + READING_COLUMNS], on="potency_id", how="left") if len(rows) else \
+        pot.assign(**{c: np.nan for c in READING_COLUMNS})
+    return GradeResult(summary, findings, potency_out, versions, kinetics=kin, kinetic_runs=selection.runs, duration=dm)
+
+
+_OPTIONAL_POTENCY = ("tracer_conc_M", "tracer_kd_M", "tracer_residence_time_s", "max_response_fraction", "preincubation_s",
+                     "max_incubation_s", "target_conc_M")
+
+
+def _duration_kinetics(kin: pd.DataFrame, runs: pd.DataFrame, programs: pd.DataFrame | None, comp: pd.DataFrame) -> pd.DataFrame:
+    """The kinetics the duration check uses: the selection, except that for conflicting runs the riskier end is
+    taken per profile: the fastest run (shortest residence time) when the program sets a minimum duration or a
+    dosing interval and no offset limit (too short an action is the risk), else the slowest (as for potency)."""
+    if kin.empty or not kin["conflict"].fillna(False).astype(bool).any() or programs is None or programs.empty:
+        return kin
+    pr = programs.rename(columns={"name": "program"}).set_index("program")
+    prog = kin["compound_id"].map(comp.drop_duplicates("compound_id").set_index("compound_id")["program"])
+    g = lambda c: pd.to_numeric(prog.map(pr[c]) if c in pr.columns else pd.Series(np.nan, index=kin.index), errors="coerce")  # noqa: E731
+    wants_duration = (g("duration_min_s").notna() | g("dosing_interval_s").notna()) & g("offset_max_s").isna()
+    swap = kin["conflict"].fillna(False).astype(bool) & wants_duration
+    if not swap.any():
+        return kin
+    fastest = runs.sort_values("koff_per_s").drop_duplicates("compound_id", keep="last").set_index("compound_id")
+    out = kin.copy()
+    ids = out.loc[swap, "compound_id"]
+    out.loc[swap, "koff_per_s"] = ids.map(fastest["koff_per_s"]).to_numpy(float)
+    kon = ids.map(fastest["kon_per_M_s"]).astype(float)
+    out.loc[swap, "kon_per_M_s"] = np.where(np.isfinite(kon), kon, out.loc[swap, "kon_per_M_s"].astype(float))
+    out.loc[swap, "kinetic_measurement_id"] = ids.map(fastest["kinetic_measurement_id"]).to_numpy()
+    return out
 
 
 def _evidence_text(likely: pd.DataFrame | None) -> dict:
@@ -585,9 +624,9 @@ def _summary(comp, findings, kin, pot, rows, versions) -> pd.DataFrame:
         s["top_message"] = s["compound_id"].map(top["message"])
         s["grade"] = s["top_severity"].fillna("clear")
         s["n_findings"] = s["compound_id"].map(counts).fillna(0).astype(int)
-    k = kin.set_index("compound_id")
-    s["residence_time_s"] = s["compound_id"].map(1.0 / k["koff_per_s"].astype(float))
-    s["kinetic_measurement_id"] = s["compound_id"].map(k["kinetic_measurement_id"])
+    ev = summarise(s["compound_id"], kin, rows).set_index("compound_id")
+    for c in ev.columns:
+        s[c] = s["compound_id"].map(ev[c])
     if len(pot):
         best = pot.sort_values(["compound_id", "value_M"], kind="mergesort").drop_duplicates("compound_id").set_index("compound_id")
         s["best_potency_M"] = s["compound_id"].map(best["value_M"])
@@ -597,12 +636,5 @@ def _summary(comp, findings, kin, pot, rows, versions) -> pd.DataFrame:
     else:
         for c in ("best_potency_M", "best_potency_readout", "best_potency_assay", "best_potency_incubation_s"):
             s[c] = np.nan
-    if len(rows):
-        g = rows.groupby("compound_id")
-        s["max_fold_shift"] = s["compound_id"].map(g["fold_shift"].max())
-        s["corrected_affinity_M"] = s["compound_id"].map(g["corrected_affinity_M"].min())
-    else:
-        s["max_fold_shift"] = np.nan
-        s["corrected_affinity_M"] = np.nan
     s["ruleset_version"] = s["program"].map(versions)
     return s
