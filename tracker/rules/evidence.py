@@ -175,6 +175,8 @@ def select_kinetics(kinetics: pd.DataFrame | None, *, fit_methods: pd.Series | N
         "rt_lower_bound": g["rt_lower_bound"].any(),
         "_lo_min": g["koff_low_per_s"].min(),
         "_hi_max": g["koff_high_per_s"].max(),
+        "_kmin": g["koff_per_s"].min(),
+        "_kmax": g["koff_per_s"].max(),
     })
     slowest = runs.loc[runs.groupby("compound_id")["_lk"].idxmin()].set_index("compound_id")
     n = out["n_runs"].to_numpy(dtype=float)
@@ -193,8 +195,8 @@ def select_kinetics(kinetics: pd.DataFrame | None, *, fit_methods: pd.Series | N
     slow_kon = slowest["kon_per_M_s"].reindex(cids).to_numpy(float)
     koff_c = np.where(conflict, slow_k, np.exp(mean))
     kon_c = np.where(conflict, np.where(np.isfinite(slow_kon), slow_kon, np.exp(out["_kon"].to_numpy())), np.exp(out["_kon"].to_numpy()))
-    all_lo = np.fmin(out["_lo_min"].to_numpy(float), np.exp(out["_min"].to_numpy()))
-    all_hi = np.fmax(out["_hi_max"].to_numpy(float), np.exp(out["_max"].to_numpy()))
+    all_lo = np.fmin(out["_lo_min"].to_numpy(float), out["_kmin"].to_numpy(float))
+    all_hi = np.fmax(out["_hi_max"].to_numpy(float), out["_kmax"].to_numpy(float))
     one = runs.drop_duplicates("compound_id", keep="last").set_index("compound_id").reindex(cids)
     lo = np.where(single, one["koff_low_per_s"].to_numpy(float), np.where(conflict, all_lo, np.exp(mean - half)))
     hi = np.where(single, one["koff_high_per_s"].to_numpy(float), np.where(conflict, all_hi, np.exp(mean + half)))
