@@ -128,6 +128,9 @@ def test_audit_trail_lists_events_newest_first(app_ro, ui, shared_engine):
     table = at.dataframe[0].value
     assert table["#"].iloc[0] == head
     assert f"{count:,} event(s) match." in ui.text(at)
+    # names, not database ids; changes as field: old -> new, not raw JSON
+    assert not table["What"].str.fullmatch(r"[a-z_ ]+ \d+").any(), table["What"].tolist()
+    assert not table["Change (before → after)"].str.startswith("{").any()
 
 
 def test_what_if_starts_from_the_stored_grade(app_ro, graded, ui):

@@ -221,7 +221,7 @@ def _write(session: Session, v: Validated, actor: str, prog: Progress) -> dict[s
 
     summary: dict[str, Any] = {"tables": {}, "files": [f for fs in v.files.values() for f in fs]}
     events: list[dict[str, Any]] = []
-    reason = f"import of {', '.join(summary['files'])}"
+    reason = f"import of {', '.join(Path(f).name for f in summary['files'])}"  # the files' own names, not where they sat
 
     # -- programs
     if "programs" in v.tables:

@@ -478,10 +478,13 @@ def read_audit(engine: Engine, flt: AuditFilter = AuditFilter(), *, limit: int =
             AuditEvent.entity_id, AuditEvent.reason, AuditEvent.before_json, AuditEvent.after_json, AuditEvent.hash]
     stmt = _audit_where(select(*cols), flt).order_by(AuditEvent.id.desc()).limit(limit).offset(offset)
     count = _audit_where(select(func.count()).select_from(AuditEvent), flt)
+    from ..services.audit_view import describe
+
     with engine.connect() as conn:
         result = conn.execute(stmt)
         df = pd.DataFrame.from_records(result.all(), columns=list(result.keys()))
         total = int(conn.execute(count).scalar_one())
+        df = describe(conn, df)
     return df, total
 
 

@@ -28,10 +28,9 @@ def display_frame(df: pd.DataFrame) -> pd.DataFrame:
         "When (UTC)": df["at"].str.slice(0, 19).str.replace("T", " "),
         "Who": df["actor"],
         "Action": df["action"],
-        "Entity": df["entity_type"] + df["entity_id"].map(lambda v: f" {v}" if isinstance(v, str) and v else ""),
+        "What": df["entity_label"],
         "Reason": df["reason"].fillna(""),
-        "Before": df["before_json"].fillna(""),
-        "After": df["after_json"].fillna(""),
+        "Change (before → after)": df["change"],
         "Hash": df["hash"].str.slice(0, 12),
     })
 
@@ -75,8 +74,8 @@ def render() -> None:
         st.info("No audit events match.")
         return
     st.dataframe(display_frame(df), hide_index=True, placeholder="–", width="stretch",
-                 column_config={"Before": st.column_config.TextColumn(width="medium"),
-                                "After": st.column_config.TextColumn(width="medium")})
+                 column_config={"Change (before → after)": st.column_config.TextColumn(width="large"),
+                                "What": st.column_config.TextColumn(width="medium")})
 
 
 if __name__ == "__main__":
