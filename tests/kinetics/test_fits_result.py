@@ -108,3 +108,34 @@ def test_competition_and_ki_shift_results_round_trip_through_json():
         for label in r.curve_labels:
             x = np.geomspace(1e-10, 1e-5, 5) if r is ks else np.linspace(0, 3600, 5)
             np.testing.assert_allclose(back.curve(x, label), r.curve(x, label), rtol=1e-12)
+
+
+def test_the_estimates_intervals_and_extras_of_a_result_are_read_only(assoc):
+    with pytest.raises(TypeError):
+        assoc.estimates["koff"] = 1.0  # type: ignore[index]
+    with pytest.raises(TypeError):
+        assoc.ci95["koff"] = (0.0, 1.0)  # type: ignore[index]
+    with pytest.raises(TypeError):
+        assoc.extras["kobs_line"]["slope"] = 0.0  # nested mappings are read-only too
+    assert isinstance(assoc.warnings, tuple) and isinstance(assoc.model.curves, tuple)
+
+
+def test_a_result_survives_pickling_and_deep_copies_unchanged(assoc):
+    import copy
+    import pickle
+
+    for back in (pickle.loads(pickle.dumps(assoc)), copy.deepcopy(assoc)):
+        assert back.to_dict() == assoc.to_dict()
+        with pytest.raises(TypeError):
+            back.estimates["kon"] = 0.0  # type: ignore[index]
+
+
+def test_the_flat_notebook_api_exports_the_fits_and_closed_forms():
+    import tracker.kinetics as kin
+
+    for name in ("fit_dissociation", "fit_association", "fit_competition_kinetics", "fit_morrison", "fit_table",
+                 "FitResult", "association", "motulsky_mahan", "morrison_fraction", "depletion_association"):
+        assert name in kin.__all__ and callable(getattr(kin, name)) or name == "FitResult"
+    from tracker.kinetics import fit_dissociation as fd  # the failing import
+
+    assert fd is fit_dissociation

@@ -213,7 +213,7 @@ def fit_association(
         if distinct.size < 2 and koff is None:
             raise FitError("the depletion-aware association model needs two or more concentrations, or a known "
                            "koff")
-    if receptor_conc is None and (len(curves) == 1 or not known or (distinct.size < 2 and koff is None)):
+    if receptor_conc is None and (len(curves) == 1 or not known or distinct.size < 2):
         if len(curves) > 1 and not known:
             raise FitError("several association curves need a concentration column (ligand concentration per curve)")
         return _single_concentration(b, t, y, idx, curves, concs, koff, intervals, max_nfev, strict, weights)
