@@ -347,3 +347,18 @@ def test_sorting_by_residence_time_puts_unmeasured_compounds_last():
 
     df = pd.DataFrame({"compound": ["a", "b", "c"], "residence_time_s": [np.nan, 60.0, 3600.0], "grade_label": ["x"] * 3})
     assert list(filter_sort(df, [], "Residence time (longest first)")["compound"]) == ["c", "b", "a"]
+
+
+@pytest.mark.parametrize("view", ["compound", "gate", "what_if"])
+def test_a_page_opened_without_a_selection_starts_on_the_worst_graded_compound(app_ro, graded, ui, view):
+    at = ui.open(app_ro(), view)
+    picked = at.selectbox(key="pick_krt_compound").value
+    rank = {"high": 0, "moderate": 1, "low": 2, "clear": 3}
+    worst = min(rank[g["grade"]] for g in graded.values())
+    assert rank[graded[picked]["grade"]] == worst, (picked, graded[picked]["grade"])
+
+
+def test_a_page_opened_with_a_selection_keeps_it(app_ro, graded, ui):
+    calm = sorted(n for n, g in graded.items() if g["grade"] == "clear")[0]
+    at = ui.open(app_ro(), "gate", krt_compound=calm)
+    assert at.selectbox(key="pick_krt_compound").value == calm

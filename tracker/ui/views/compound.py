@@ -34,6 +34,19 @@ def potency_display(table: pd.DataFrame) -> pd.DataFrame:
     return out
 
 
+def worst_compound(ctx, names: list[str]) -> str | None:
+    """The worst-graded compound among ``names`` (ties: more findings first, then the name)."""
+    table = data.grade_table(data.grades(ctx.url, ctx.version, ctx.program))
+    if table.empty:
+        return None
+    table = table[table["compound"].isin(names)]
+    if table.empty:
+        return None
+    rank = {g: i for i, g in enumerate(("high", "moderate", "low", "clear"))}
+    best = min(table.itertuples(index=False), key=lambda r: (rank.get(r.grade, 9), -int(r.n_findings), r.compound))
+    return str(best.compound)
+
+
 def pick_compound(ctx, key: str = COMPOUND_KEY) -> str | None:
     """A compound picker shared by the evidence, gate and what-if pages (remembers the choice)."""
     names = data.compound_names(ctx.url, ctx.version, ctx.program)
@@ -46,6 +59,8 @@ def pick_compound(ctx, key: str = COMPOUND_KEY) -> str | None:
         st.session_state[COMPOUND_KEY] = linked
         st.session_state.pop(f"pick_{key}", None)
     current = st.session_state.get(COMPOUND_KEY)
+    if current not in names:  # nothing selected yet: open on the compound that most needs a look
+        current = worst_compound(ctx, names)
     index = names.index(current) if current in names else 0
     name = st.selectbox("Compound", names, index=index, key=f"pick_{key}")
     st.session_state[COMPOUND_KEY] = name
