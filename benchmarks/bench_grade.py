@@ -64,7 +64,7 @@ def generate(folder: Path, n: int = 10_000, seed: int = 20261201) -> dict[str, i
         "dosing_interval": ["24 h", "", "12 h", ""],
     })
     prog = rng.integers(0, 4, n)
-    names = np.array([f"BX-{i:06d}" for i in range(n)])
+    names = np.array([f"BENCH-{i:06d}" for i in range(n)])
     compounds = pd.DataFrame({
         "compound": names,
         "program": programs["program"].to_numpy()[prog],

@@ -20,7 +20,7 @@ PROGRAMS = [
          engagement_threshold=0.7, onset_max="3 h", duration_min="20 h", offset_max="", dosing_interval="24 h"),
     dict(program="Quillmere", target="QMR1 receptor (invented)", intended_profile="short-acting",
          engagement_threshold=0.3, onset_max="30 min", duration_min="2 h", offset_max="8 h", dosing_interval=""),
-    dict(program="Tallowmoor", target="TMP3 protease (invented)", intended_profile="twice-daily",
+    dict(program="Tallowmoor", target="Tallowmoor protease (invented)", intended_profile="twice-daily",
          engagement_threshold=0.5, onset_max="2 h", duration_min="10 h", offset_max="", dosing_interval="12 h"),
 ]
 

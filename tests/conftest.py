@@ -213,35 +213,35 @@ def pytest_terminal_summary(terminalreporter, exitstatus, config):
 SAMPLE = {
     "programs.csv": (
         "program,target,intended_profile,engagement_threshold,onset_max,duration_min,offset_max,dosing_interval\n"
-        "Aurora,Kinase AUR1,once-daily,0.8,2 h,24 h,,24 h\n"
-        "Borealis,Receptor BR2,short-acting,50 %,15 min,,4 h,\n"
+        "Ashgrove,Kinase AG1,once-daily,0.8,2 h,24 h,,24 h\n"
+        "Brackenfold,Receptor BF2,short-acting,50 %,15 min,,4 h,\n"
     ),
     "compounds.csv": (
         "compound,program,series,stage,smiles\n"
-        "AUR-001,Aurora,S1,hit,CCO\n"
-        "AUR-002,Aurora,S1,lead-optimization,\n"
-        "AUR-003,Aurora,S2,candidate,c1ccccc1\n"
-        "BOR-001,Borealis,,hit-to-lead,\n"
+        "AGR-001,Ashgrove,S1,hit,CCO\n"
+        "AGR-002,Ashgrove,S1,lead-optimization,\n"
+        "AGR-003,Ashgrove,S2,candidate,c1ccccc1\n"
+        "BKF-001,Brackenfold,,hit-to-lead,\n"
     ),
     "potency.csv": (
         "compound,assay,readout,value,incubation,format,tracer_conc,tracer_kd,tracer_residence_time,max_response_fraction,date,source\n"
-        "AUR-001,TR-FRET binding,IC50,3.2 nM,30 min,competition-binding,5 nM,2 nM,10 min,,2026-01-05,\n"
-        "AUR-002,enzyme activity,Ki,12 µM,1 h,enzyme,,,,,,lab-notebook-17\n"
-        "AUR-003,cell reporter,EC50,0.45 nM,4 h,functional,,,,0.7,2026-02-11,\n"
-        "BOR-001,radioligand,Kb,8e-9 M,90 min,binding,,,,,,\n"
+        "AGR-001,TR-FRET binding,IC50,3.2 nM,30 min,competition-binding,5 nM,2 nM,10 min,,2026-01-05,\n"
+        "AGR-002,enzyme activity,Ki,12 µM,1 h,enzyme,,,,,,lab-notebook-17\n"
+        "AGR-003,cell reporter,EC50,0.45 nM,4 h,functional,,,,0.7,2026-02-11,\n"
+        "BKF-001,radioligand,Kb,8e-9 M,90 min,binding,,,,,,\n"
     ),
     "kinetics.csv": (
         "compound,method,kon,koff,residence_time,kd,kon_low,kon_high,koff_low,koff_high,date,source\n"
-        "AUR-001,spr,1e6 /M/s,1e-3 /s,,1 nM,5e5 /M/s,2e6 /M/s,5e-4 /s,2e-3 /s,2026-01-10,\n"
-        "AUR-002,jump-dilution,,,3 h,,,,,,,\n"
-        "AUR-003,competition-kinetics,0.06 /nM/min,,45 min,,,,,,2026-02-01,\n"
-        "AUR-003,competition-kinetics,0.05 /nM/min,,60 min,,,,,,2026-03-01,\n"
+        "AGR-001,spr,1e6 /M/s,1e-3 /s,,1 nM,5e5 /M/s,2e6 /M/s,5e-4 /s,2e-3 /s,2026-01-10,\n"
+        "AGR-002,jump-dilution,,,3 h,,,,,,,\n"
+        "AGR-003,competition-kinetics,0.06 /nM/min,,45 min,,,,,,2026-02-01,\n"
+        "AGR-003,competition-kinetics,0.05 /nM/min,,60 min,,,,,,2026-03-01,\n"
     ),
     "pk.csv": (
         "compound,species,route,half_life,free_cmax,tmax,dosing_interval,source\n"
-        "AUR-003,rat,oral,4 h,50 nM,1 h,24 h,\n"
-        "AUR-003,rat,iv,3 h,200 nM,,,\n"
-        "BOR-001,dog,oral,90 min,12 nM,30 min,,study-9\n"
+        "AGR-003,rat,oral,4 h,50 nM,1 h,24 h,\n"
+        "AGR-003,rat,iv,3 h,200 nM,,,\n"
+        "BKF-001,dog,oral,90 min,12 nM,30 min,,study-9\n"
     ),
 }
 

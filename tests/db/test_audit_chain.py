@@ -21,8 +21,8 @@ def _seed(engine, n_events: int = 5) -> None:
     now = dt.datetime.now(dt.timezone.utc)
     with UnitOfWork(engine) as uow:
         s = uow.session
-        pid = s.execute(insert(Program).returning(Program.id), [{"name": "Aurora", "created_at": now}]).scalar_one()
-        cid = s.execute(insert(Compound).returning(Compound.id), [{"name": "AUR-1", "program_id": pid, "stage": "hit", "created_at": now}]).scalar_one()
+        pid = s.execute(insert(Program).returning(Program.id), [{"name": "Ashgrove", "created_at": now}]).scalar_one()
+        cid = s.execute(insert(Compound).returning(Compound.id), [{"name": "AGR-1", "program_id": pid, "stage": "hit", "created_at": now}]).scalar_one()
         s.execute(insert(Decision), [{"compound_id": cid, "from_stage": "hit", "to_stage": "hit-to-lead", "outcome": "approved",
                                       "by_user": "ana", "reason": "kinetics measured", "at": now}])
         for i in range(n_events):

@@ -84,8 +84,8 @@ def _populate(engine, sample_dir: Path) -> None:
     add_user(engine, "vic", "viewer", by="lena")
     deactivate_user(engine, "vic", by="lena", reason="left the team")
     import_path(engine, sample_dir, actor="sam")
-    set_rule_override(engine, "Aurora", {"ki_shift_threshold": 8}, by="lena", reason="assay noise")
-    request_gate(engine, "AUR-001", "hit-to-lead", "lena", "meets the bar", waivers=["residence-time-unmeasured", "affinity-underestimate", "duration-mismatch"])
+    set_rule_override(engine, "Ashgrove", {"ki_shift_threshold": 8}, by="lena", reason="assay noise")
+    request_gate(engine, "AGR-001", "hit-to-lead", "lena", "meets the bar", waivers=["residence-time-unmeasured", "affinity-underestimate", "duration-mismatch"])
 
 
 # ------------------------------------------------------------------ SQLite online backup
@@ -261,7 +261,7 @@ def test_an_export_based_restore_verifies_and_exports_the_same_files_with_users_
         stages = dict(conn.execute(select(Compound.name, Compound.stage)).all())
     assert last.actor == "restorer" and last.action == "restore"
     assert json.loads(last.after_json)["manifest"]["audit_head_hash"] == m["audit_head_hash"]
-    assert stages["AUR-001"] == "hit-to-lead"  # the current stage travels; the decision that set it does not
+    assert stages["AGR-001"] == "hit-to-lead"  # the current stage travels; the decision that set it does not
     counts = count_rows(second_migrated_engine)
     assert counts["decisions"] == 0 and count_rows(migrated_engine)["decisions"] == 1
 

@@ -93,7 +93,7 @@ def test_the_app_role_does_every_job_of_the_tracker(app_engine, sample_dir):
         assert conn.execute(text("SELECT current_user")).scalar_one().startswith("krt_app_")
     add_user(app_engine, "lena", "lead")
     import_path(app_engine, sample_dir, actor="lena")
-    approved = request_gate(app_engine, "AUR-001", "hit-to-lead", "lena", "ready", waivers=list(rc.RULES))
+    approved = request_gate(app_engine, "AGR-001", "hit-to-lead", "lena", "ready", waivers=list(rc.RULES))
     assert approved["outcome"] == "approved"
     result = verify(app_engine)
     assert result["ok"], result["message"]
@@ -115,7 +115,7 @@ EDITS = (
 def test_the_app_role_is_refused_by_privilege_before_any_trigger(app_engine, sample_dir):
     add_user(app_engine, "lena", "lead")
     import_path(app_engine, sample_dir, actor="lena")
-    request_gate(app_engine, "AUR-001", "hit-to-lead", "lena", "ready", waivers=list(rc.RULES))
+    request_gate(app_engine, "AGR-001", "hit-to-lead", "lena", "ready", waivers=list(rc.RULES))
     states = {sql: _sqlstate(app_engine, sql) for sql in EDITS}
     assert states == {sql: "42501" for sql in EDITS}  # insufficient_privilege (the trigger would say 23000)
     assert verify(app_engine)["ok"]

@@ -23,20 +23,20 @@ def loaded(migrated_engine, sample_dir):
 
 def test_compounds_carry_their_program_name(loaded):
     df = queries.compounds(loaded)
-    assert dict(zip(df["name"], df["program"])) == {"AUR-001": "Aurora", "AUR-002": "Aurora", "AUR-003": "Aurora", "BOR-001": "Borealis"}
-    assert list(queries.compounds(loaded, program="Borealis")["name"]) == ["BOR-001"]
-    assert list(queries.compounds(loaded, stage="candidate")["name"]) == ["AUR-003"]
+    assert dict(zip(df["name"], df["program"])) == {"AGR-001": "Ashgrove", "AGR-002": "Ashgrove", "AGR-003": "Ashgrove", "BKF-001": "Brackenfold"}
+    assert list(queries.compounds(loaded, program="Brackenfold")["name"]) == ["BKF-001"]
+    assert list(queries.compounds(loaded, stage="candidate")["name"]) == ["AGR-003"]
 
 
 def test_latest_kinetics_keeps_the_most_recent_measurement_per_compound(loaded):
     all_rows = queries.kinetics(loaded)
     assert len(all_rows) == 4
     latest = queries.kinetics(loaded, latest=True).set_index("compound")
-    assert sorted(latest.index) == ["AUR-001", "AUR-002", "AUR-003"]
-    assert latest.loc["AUR-003", "koff_text"] == "60 min"  # 2026-03-01 beats 2026-02-01
+    assert sorted(latest.index) == ["AGR-001", "AGR-002", "AGR-003"]
+    assert latest.loc["AGR-003", "koff_text"] == "60 min"  # 2026-03-01 beats 2026-02-01
     # residence time = 1/koff (Copeland, Pompliano & Meek 2006, Nat Rev Drug Discov 5:730)
-    assert latest.loc["AUR-003", "residence_time_s"] == pytest.approx(3600.0)
-    assert latest.loc["AUR-001", "kd_from_rates_M"] == pytest.approx(1e-3 / 1e6)  # KD = koff/kon
+    assert latest.loc["AGR-003", "residence_time_s"] == pytest.approx(3600.0)
+    assert latest.loc["AGR-001", "kd_from_rates_M"] == pytest.approx(1e-3 / 1e6)  # KD = koff/kon
 
 
 def test_float_columns_are_float_even_when_all_missing(loaded):
@@ -76,7 +76,7 @@ def test_counts_cover_every_table_and_saved_fits(loaded):
 def test_a_time_course_comes_back_as_its_columns_with_meta(loaded):
     data = {"time_s": [0, 60, 120], "signal": [0.0, 0.4, 0.6], "concentration_M": [1e-9] * 3, "curve": [0, 0, 0]}
     with UnitOfWork(loaded) as uow:
-        cid = uow.session.execute(select(Compound.id).where(Compound.name == "AUR-001")).scalar_one()
+        cid = uow.session.execute(select(Compound.id).where(Compound.name == "AGR-001")).scalar_one()
         tid = uow.session.execute(insert(TimeCourse).returning(TimeCourse.id), [{
             "compound_id": cid, "method": "association-dissociation", "data_json": json.dumps(data),
             "meta_json": json.dumps({"file": "run1.csv"}), "content_hash": "h1", "created_at": dt.datetime.now(dt.timezone.utc),
@@ -85,7 +85,7 @@ def test_a_time_course_comes_back_as_its_columns_with_meta(loaded):
     df = queries.time_course(loaded, tid)
     assert list(df.columns) == ["time_s", "signal", "concentration_M", "curve"]
     assert df["signal"].tolist() == [0.0, 0.4, 0.6]
-    assert df.attrs["compound"] == "AUR-001" and df.attrs["meta"] == {"file": "run1.csv"}
+    assert df.attrs["compound"] == "AGR-001" and df.attrs["meta"] == {"file": "run1.csv"}
     assert list(queries.time_courses(loaded)["id"]) == [tid]
     with pytest.raises(NotFoundError):
         queries.time_course(loaded, tid + 100)

@@ -95,19 +95,19 @@ def test_a_reading_unit_of_work_does_not_block_writers(sqlite_file):
 
 def test_a_unit_of_work_rolls_back_unless_committed(migrated_engine):
     with UnitOfWork(migrated_engine) as uow:
-        uow.session.execute(insert(Program), [{"name": "Aurora", "created_at": NOW}])
+        uow.session.execute(insert(Program), [{"name": "Ashgrove", "created_at": NOW}])
     with UnitOfWork(migrated_engine) as uow:
         assert uow.session.execute(select(func.count()).select_from(Program)).scalar() == 0
-        uow.session.execute(insert(Program), [{"name": "Aurora", "created_at": NOW}])
+        uow.session.execute(insert(Program), [{"name": "Ashgrove", "created_at": NOW}])
         uow.commit()
     with UnitOfWork(migrated_engine, write=False) as uow:
-        assert uow.session.execute(select(Program.name)).scalars().all() == ["Aurora"]
+        assert uow.session.execute(select(Program.name)).scalars().all() == ["Ashgrove"]
 
 
 def test_an_exception_inside_a_unit_of_work_rolls_it_back(migrated_engine):
     with pytest.raises(RuntimeError):
         with UnitOfWork(migrated_engine) as uow:
-            uow.session.execute(insert(Program), [{"name": "Aurora", "created_at": NOW}])
+            uow.session.execute(insert(Program), [{"name": "Ashgrove", "created_at": NOW}])
             raise RuntimeError("boom")
     with UnitOfWork(migrated_engine, write=False) as uow:
         assert uow.session.execute(select(func.count()).select_from(Program)).scalar() == 0

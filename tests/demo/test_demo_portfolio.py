@@ -116,3 +116,19 @@ def test_demo_saved_fits_show_in_info(db_url, capsys, monkeypatch):
     from tracker.services.demo import manifest
 
     assert info["counts"]["saved_fits"] == len(manifest()) == 8  # one per raw time course, every fit method
+
+
+def test_demo_load_again_keeps_gate_decisions_and_own_imports(demo_engine, tmp_path):
+    """Re-loading the demo after using it (a gate, an own import) keeps that work (it used to refuse the stage change)."""
+    from tracker.db.queries import counts
+    from tracker.services.gates import request_gate
+    from tracker.services.importing import import_path
+
+    request_gate(demo_engine, "HF-1002", "hit-to-lead", by="demo-lead", reason="fast and clean")
+    (tmp_path / "compounds.csv").write_text("compound,program,series,stage,smiles\nHF-1002,Heronfield,renamed series,hit-to-lead,\n", encoding="utf-8")
+    import_path(demo_engine, tmp_path / "compounds.csv", actor="demo-scientist")
+    before = counts(demo_engine)
+    summary = load_demo(demo_engine)
+    assert summary["fits_saved"] == 0 and counts(demo_engine) == before
+    stage, series = {r["compound"]: (r["stage"], r["series"]) for r in grade_portfolio(demo_engine)}["HF-1002"]
+    assert stage == "hit-to-lead" and series == "renamed series"

@@ -17,13 +17,13 @@ from tracker.services.auditlog import verify
 from tracker.services.importing import import_path
 
 POT_HEAD = "compound,assay,readout,value,incubation,format\n"
-POT_OK = "AUR-001,new assay,IC50,5 nM,1 h,binding\n"
+POT_OK = "AGR-001,new assay,IC50,5 nM,1 h,binding\n"
 KIN_HEAD = "compound,method,kon,koff,residence_time,kd\n"
-KIN_OK = "AUR-002,spr,2e5 /M/s,1e-4 /s,,\n"
+KIN_OK = "AGR-002,spr,2e5 /M/s,1e-4 /s,,\n"
 PK_HEAD = "compound,species,route,half_life,free_cmax,tmax\n"
-PK_OK = "AUR-001,mouse,oral,2 h,30 nM,30 min\n"
+PK_OK = "AGR-001,mouse,oral,2 h,30 nM,30 min\n"
 CPD_HEAD = "compound,program,series,stage,smiles\n"
-CPD_OK = "NEW-001,Aurora,S9,hit,\n"
+CPD_OK = "NEW-001,Ashgrove,S9,hit,\n"
 
 
 def _xlsx(path: Path, sheet: str, rows: list[list]) -> Path:
@@ -45,26 +45,26 @@ def _short(err: InputError) -> str:
 
 
 BAD_CSV = {
-    "unknown unit": ({"potency.csv": POT_HEAD + POT_OK + "AUR-002,a,IC50,3 nQ,30 min,binding\n"}, "potency.csv:3: value: unknown unit 'nQ'"),
-    "dimension mismatch": ({"potency.csv": POT_HEAD + POT_OK + "AUR-002,a,IC50,3 nM,5 nM,binding\n"}, "potency.csv:3: incubation: unit 'nM' is a concentration, expected a time"),
-    "missing column": ({"potency.csv": "compound,assay,readout,value,format\n" + "AUR-001,a,IC50,5 nM,binding\n"}, "potency.csv:1: incubation: missing required column"),
-    "missing value": ({"potency.csv": POT_HEAD + POT_OK + "AUR-002,,IC50,3 nM,30 min,binding\n"}, "potency.csv:3: assay: missing value"),
+    "unknown unit": ({"potency.csv": POT_HEAD + POT_OK + "AGR-002,a,IC50,3 nQ,30 min,binding\n"}, "potency.csv:3: value: unknown unit 'nQ'"),
+    "dimension mismatch": ({"potency.csv": POT_HEAD + POT_OK + "AGR-002,a,IC50,3 nM,5 nM,binding\n"}, "potency.csv:3: incubation: unit 'nM' is a concentration, expected a time"),
+    "missing column": ({"potency.csv": "compound,assay,readout,value,format\n" + "AGR-001,a,IC50,5 nM,binding\n"}, "potency.csv:1: incubation: missing required column"),
+    "missing value": ({"potency.csv": POT_HEAD + POT_OK + "AGR-002,,IC50,3 nM,30 min,binding\n"}, "potency.csv:3: assay: missing value"),
     "unknown compound": ({"potency.csv": POT_HEAD + POT_OK + "NOPE-1,a,IC50,3 nM,30 min,binding\n"}, "potency.csv:3: compound: unknown compound 'NOPE-1'"),
     "unknown program": ({"compounds.csv": CPD_HEAD + CPD_OK + "NEW-002,Nowhere,,hit,\n"}, "compounds.csv:3: program: unknown program 'Nowhere'"),
-    "negative value": ({"kinetics.csv": KIN_HEAD + KIN_OK + "AUR-001,spr,1e6 /M/s,-1e-3 /s,,\n"}, "kinetics.csv:3: koff: value must be positive"),
-    "zero value": ({"pk.csv": PK_HEAD + PK_OK + "AUR-002,rat,iv,0 h,10 nM,\n"}, "pk.csv:3: half_life: value must be positive"),
-    "NaN value": ({"potency.csv": POT_HEAD + POT_OK + "AUR-002,a,IC50,NaN nM,30 min,binding\n"}, "potency.csv:3: value: 'NaN nM' is not a finite number"),
-    "kon faster than diffusion": ({"kinetics.csv": KIN_HEAD + KIN_OK + "AUR-001,spr,3e10 /M/s,1e-3 /s,,\n"}, "kinetics.csv:3: kon: kon 3e10 /M/s exceeds the diffusion limit"),
-    "unknown stage": ({"compounds.csv": CPD_HEAD + CPD_OK + "NEW-002,Aurora,,phase-7,\n"}, "compounds.csv:3: stage: unknown stage 'phase-7'"),
-    "unknown method": ({"kinetics.csv": KIN_HEAD + KIN_OK + "AUR-001,guesswork,1e6 /M/s,1e-3 /s,,\n"}, "kinetics.csv:3: method: unknown method 'guesswork'"),
-    "koff and residence time both": ({"kinetics.csv": KIN_HEAD + KIN_OK + "AUR-001,spr,1e6 /M/s,1e-3 /s,2 h,\n"}, "kinetics.csv:3: residence_time: give koff or residence_time, not both"),
-    "neither koff nor residence time": ({"kinetics.csv": KIN_HEAD + KIN_OK + "AUR-001,spr,1e6 /M/s,,,\n"}, "kinetics.csv:3: koff: give koff or residence_time"),
-    "oral PK without tmax": ({"pk.csv": PK_HEAD + PK_OK + "AUR-002,rat,oral,2 h,10 nM,\n"}, "pk.csv:3: tmax: tmax is required for oral PK"),
-    "bad date": ({"potency.csv": POT_HEAD.strip() + ",date\n" + POT_OK.strip() + ",2026-01-02\n" + "AUR-002,a,IC50,3 nM,30 min,binding,03/02/2026\n"}, "potency.csv:3: date: not a date"),
-    "conflicting duplicate compound": ({"compounds.csv": CPD_HEAD + CPD_OK + "NEW-001,Aurora,S1,hit,\n"}, "compounds.csv:3: compound: compound 'NEW-001' is also on"),
+    "negative value": ({"kinetics.csv": KIN_HEAD + KIN_OK + "AGR-001,spr,1e6 /M/s,-1e-3 /s,,\n"}, "kinetics.csv:3: koff: value must be positive"),
+    "zero value": ({"pk.csv": PK_HEAD + PK_OK + "AGR-002,rat,iv,0 h,10 nM,\n"}, "pk.csv:3: half_life: value must be positive"),
+    "NaN value": ({"potency.csv": POT_HEAD + POT_OK + "AGR-002,a,IC50,NaN nM,30 min,binding\n"}, "potency.csv:3: value: 'NaN nM' is not a finite number"),
+    "kon faster than diffusion": ({"kinetics.csv": KIN_HEAD + KIN_OK + "AGR-001,spr,3e10 /M/s,1e-3 /s,,\n"}, "kinetics.csv:3: kon: kon 3e10 /M/s exceeds the diffusion limit"),
+    "unknown stage": ({"compounds.csv": CPD_HEAD + CPD_OK + "NEW-002,Ashgrove,,phase-7,\n"}, "compounds.csv:3: stage: unknown stage 'phase-7'"),
+    "unknown method": ({"kinetics.csv": KIN_HEAD + KIN_OK + "AGR-001,guesswork,1e6 /M/s,1e-3 /s,,\n"}, "kinetics.csv:3: method: unknown method 'guesswork'"),
+    "koff and residence time both": ({"kinetics.csv": KIN_HEAD + KIN_OK + "AGR-001,spr,1e6 /M/s,1e-3 /s,2 h,\n"}, "kinetics.csv:3: residence_time: give koff or residence_time, not both"),
+    "neither koff nor residence time": ({"kinetics.csv": KIN_HEAD + KIN_OK + "AGR-001,spr,1e6 /M/s,,,\n"}, "kinetics.csv:3: koff: give koff or residence_time"),
+    "oral PK without tmax": ({"pk.csv": PK_HEAD + PK_OK + "AGR-002,rat,oral,2 h,10 nM,\n"}, "pk.csv:3: tmax: tmax is required for oral PK"),
+    "bad date": ({"potency.csv": POT_HEAD.strip() + ",date\n" + POT_OK.strip() + ",2026-01-02\n" + "AGR-002,a,IC50,3 nM,30 min,binding,03/02/2026\n"}, "potency.csv:3: date: not a date"),
+    "conflicting duplicate compound": ({"compounds.csv": CPD_HEAD + CPD_OK + "NEW-001,Ashgrove,S1,hit,\n"}, "compounds.csv:3: compound: compound 'NEW-001' is also on"),
     "unknown column": ({"potency.csv": POT_HEAD.strip() + ",hill\n" + POT_OK.strip() + ",1\n"}, "potency.csv:1: hill: unknown column"),
     "empty file": ({"potency.csv": ""}, "potency.csv:1: file is empty"),
-    "non-UTF-8 bytes": ({"pk.csv": (PK_HEAD + PK_OK).encode() + "AUR-002,b\xe9agle,iv,2 h,10 nM,\n".encode("latin-1")}, "pk.csv:3: species: byte 0xE9"),
+    "non-UTF-8 bytes": ({"pk.csv": (PK_HEAD + PK_OK).encode() + "AGR-002,b\xe9agle,iv,2 h,10 nM,\n".encode("latin-1")}, "pk.csv:3: species: byte 0xE9"),
     "semicolons": ({"potency.csv": POT_HEAD.replace(",", ";") + POT_OK.replace(",", ";")}, "potency.csv:1: the file uses ';'"),
 }
 
@@ -96,14 +96,14 @@ def test_a_bad_csv_import_names_file_line_and_column_and_writes_nothing(loaded, 
 
 BAD_XLSX = {
     "error cell": ([["compound", "assay", "readout", "value", "incubation", "format"],
-                    ["AUR-001", "new assay", "IC50", "5 nM", "1 h", "binding"],
-                    ["AUR-002", "a", "IC50", "#DIV/0!", "30 min", "binding"]], "book.xlsx[potency]:3: value: Excel error value #DIV/0!"),
+                    ["AGR-001", "new assay", "IC50", "5 nM", "1 h", "binding"],
+                    ["AGR-002", "a", "IC50", "#DIV/0!", "30 min", "binding"]], "book.xlsx[potency]:3: value: Excel error value #DIV/0!"),
     "TRUE/FALSE cell": ([["compound", "assay", "readout", "value", "incubation", "format"],
-                         ["AUR-001", "new assay", "IC50", "5 nM", "1 h", "binding"],
-                         ["AUR-002", "a", "IC50", "3 nM", True, "binding"]], "book.xlsx[potency]:3: incubation: TRUE/FALSE cell"),
+                         ["AGR-001", "new assay", "IC50", "5 nM", "1 h", "binding"],
+                         ["AGR-002", "a", "IC50", "3 nM", True, "binding"]], "book.xlsx[potency]:3: incubation: TRUE/FALSE cell"),
     "number without unit": ([["compound", "assay", "readout", "value", "incubation", "format"],
-                             ["AUR-001", "new assay", "IC50", "5 nM", "1 h", "binding"],
-                             ["AUR-002", "a", "IC50", 3.2, "30 min", "binding"]], "book.xlsx[potency]:3: value: missing unit"),
+                             ["AGR-001", "new assay", "IC50", "5 nM", "1 h", "binding"],
+                             ["AGR-002", "a", "IC50", 3.2, "30 min", "binding"]], "book.xlsx[potency]:3: value: missing unit"),
 }
 
 
@@ -129,8 +129,8 @@ def test_a_damaged_workbook_is_one_clear_error(migrated_engine, tmp_path):
 
 def test_every_error_of_an_import_is_reported_not_just_the_first(loaded, tmp_path):
     folder = _write(tmp_path / "bad", {
-        "potency.csv": POT_HEAD + "AUR-001,a,IC50,3 nQ,30 min,binding\nAUR-001,a,IC51,-3 nM,30 min,binding\nNOPE,a,IC50,3 nM,1 h,binding\n",
-        "compounds.csv": CPD_HEAD + "AUR-001,Aurora,S1,clinical,CCO\n",
+        "potency.csv": POT_HEAD + "AGR-001,a,IC50,3 nQ,30 min,binding\nAGR-001,a,IC51,-3 nM,30 min,binding\nNOPE,a,IC50,3 nM,1 h,binding\n",
+        "compounds.csv": CPD_HEAD + "AGR-001,Ashgrove,S1,clinical,CCO\n",
     })
     with pytest.raises(ImportErrors) as info:
         import_path(loaded, folder)
@@ -141,7 +141,7 @@ def test_every_error_of_an_import_is_reported_not_just_the_first(loaded, tmp_pat
 
 
 def test_a_stage_change_of_an_existing_compound_is_refused_on_import(loaded, tmp_path, db_snapshot):
-    folder = _write(tmp_path / "again", {"compounds.csv": CPD_HEAD + "AUR-001,Aurora,S1,candidate,CCO\n"})
+    folder = _write(tmp_path / "again", {"compounds.csv": CPD_HEAD + "AGR-001,Ashgrove,S1,candidate,CCO\n"})
     before = db_snapshot(loaded)
     with pytest.raises(ImportErrors) as info:
         import_path(loaded, folder)
@@ -151,7 +151,7 @@ def test_a_stage_change_of_an_existing_compound_is_refused_on_import(loaded, tmp
 
 def test_the_first_line_the_cli_prints_is_file_line_column_message(loaded, tmp_path, monkeypatch, capsys):
     monkeypatch.setenv("KRT_DATABASE_URL", loaded.url.render_as_string(hide_password=False))
-    folder = _write(tmp_path / "bad", {"potency.csv": POT_HEAD + POT_OK + "AUR-002,a,IC50,3 nQ,30 min,binding\n"})
+    folder = _write(tmp_path / "bad", {"potency.csv": POT_HEAD + POT_OK + "AGR-002,a,IC50,3 nQ,30 min,binding\n"})
     assert main(["import", str(folder / "potency.csv"), "--by", "ana"]) == 2
     err = capsys.readouterr().err.splitlines()
     assert err[0] == f"krt: error: {folder / 'potency.csv'}:3: value: unknown unit 'nQ' (cell '3 nQ')"
@@ -160,26 +160,26 @@ def test_the_first_line_the_cli_prints_is_file_line_column_message(loaded, tmp_p
 
 def test_a_good_import_converts_to_si_and_keeps_the_original_text(loaded):
     pot = queries.potency(loaded).set_index("compound")
-    assert pot.loc["AUR-001", "value_M"] == pytest.approx(3.2e-9)
-    assert pot.loc["AUR-001", "value_text"] == "3.2 nM"
-    assert pot.loc["AUR-002", "value_M"] == pytest.approx(12e-6)
-    assert pot.loc["AUR-001", "incubation_s"] == pytest.approx(1800)
-    assert pot.loc["AUR-001", "source"] == "potency.csv"  # defaults to the file name
-    assert pot.loc["AUR-002", "source"] == "lab-notebook-17"
+    assert pot.loc["AGR-001", "value_M"] == pytest.approx(3.2e-9)
+    assert pot.loc["AGR-001", "value_text"] == "3.2 nM"
+    assert pot.loc["AGR-002", "value_M"] == pytest.approx(12e-6)
+    assert pot.loc["AGR-001", "incubation_s"] == pytest.approx(1800)
+    assert pot.loc["AGR-001", "source"] == "potency.csv"  # defaults to the file name
+    assert pot.loc["AGR-002", "source"] == "lab-notebook-17"
     kin = queries.kinetics(loaded)
-    rt_row = kin[kin["compound"] == "AUR-002"].iloc[0]
+    rt_row = kin[kin["compound"] == "AGR-002"].iloc[0]
     assert rt_row["koff_per_s"] == pytest.approx(1 / (3 * 3600))  # koff = 1/RT
     assert rt_row["koff_given_as"] == "residence_time" and rt_row["koff_text"] == "3 h"
-    aur3 = kin[kin["compound"] == "AUR-003"]
+    aur3 = kin[kin["compound"] == "AGR-003"]
     assert aur3["kon_per_M_s"].tolist() == pytest.approx([1e6, 0.05e9 / 60])
     progs = queries.programs(loaded).set_index("name")
-    assert progs.loc["Borealis", "engagement_threshold"] == pytest.approx(0.5)
-    assert progs.loc["Borealis", "engagement_threshold_text"] == "50 %"
+    assert progs.loc["Brackenfold", "engagement_threshold"] == pytest.approx(0.5)
+    assert progs.loc["Brackenfold", "engagement_threshold_text"] == "50 %"
 
 
 def test_new_compounds_get_a_stage_history_row_and_the_import_is_audited(loaded):
     hist = queries.stage_history(loaded)
-    assert sorted(hist["compound"]) == ["AUR-001", "AUR-002", "AUR-003", "BOR-001"]
+    assert sorted(hist["compound"]) == ["AGR-001", "AGR-002", "AGR-003", "BKF-001"]
     assert hist["from_stage"].isna().all() and set(hist["by_user"]) == {"ana"}
     events = queries.audit_events(loaded, actor="ana")
     assert set(events["entity_type"]) >= {"program", "compounds", "potency", "kinetic_measurements", "pk_profiles"}
@@ -215,7 +215,7 @@ def test_a_compound_renamed_outside_the_application_no_longer_matches_its_import
 
     assert "4 import(s) match their rows" in verify(loaded)["message"]
     with loaded.begin() as conn:
-        conn.execute(text("UPDATE compounds SET name = 'AUR-001b' WHERE name = 'AUR-001'"))
+        conn.execute(text("UPDATE compounds SET name = 'AGR-001b' WHERE name = 'AGR-001'"))
     result = verify(loaded)
     event_id = int(queries.audit_events(loaded, action="import", entity_type="compounds")["id"].iloc[0])
     assert not result["ok"] and result["first_broken_id"] == event_id
@@ -259,15 +259,15 @@ def test_rows_may_reference_compounds_created_in_the_same_import(migrated_engine
 
 
 def test_a_changed_program_threshold_is_updated_with_its_before_and_after_audited(loaded, tmp_path):
-    folder = _write(tmp_path / "p", {"programs.csv": "program,engagement_threshold\nAurora,0.9\n"})
+    folder = _write(tmp_path / "p", {"programs.csv": "program,engagement_threshold\nAshgrove,0.9\n"})
     assert import_path(loaded, folder, actor="ana")["tables"]["programs"]["updated"] == 1
-    assert queries.programs(loaded).set_index("name").loc["Aurora", "engagement_threshold"] == pytest.approx(0.9)
+    assert queries.programs(loaded).set_index("name").loc["Ashgrove", "engagement_threshold"] == pytest.approx(0.9)
     ev = queries.audit_events(loaded, action="update", entity_type="program").iloc[-1]
     assert '"engagement_threshold_text":"0.8"' in ev["before_json"] and '"engagement_threshold_text":"0.9"' in ev["after_json"]
 
 
 def test_a_kon_above_1e9_is_imported_with_a_warning(loaded, tmp_path):
-    folder = _write(tmp_path / "k", {"kinetics.csv": KIN_HEAD + "AUR-001,spr,3e9 /M/s,1e-2 /s,,\n"})
+    folder = _write(tmp_path / "k", {"kinetics.csv": KIN_HEAD + "AGR-001,spr,3e9 /M/s,1e-2 /s,,\n"})
     summary = import_path(loaded, folder)
     assert summary["tables"]["kinetics"]["inserted"] == 1
     assert any("kinetics.csv:2: kon: kon 3e9 /M/s is above ~1e9" in w for w in summary["warnings"])
@@ -321,18 +321,18 @@ def test_a_large_import_shows_progress_on_stderr(migrated_engine, tmp_path, caps
 
 
 def test_moving_an_existing_compound_to_another_program_is_refused(loaded, tmp_path, db_snapshot):
-    folder = _write(tmp_path / "move", {"compounds.csv": CPD_HEAD + "AUR-001,Borealis,S1,hit,CCO\n"})
+    folder = _write(tmp_path / "move", {"compounds.csv": CPD_HEAD + "AGR-001,Brackenfold,S1,hit,CCO\n"})
     before = db_snapshot(loaded)
     with pytest.raises(ImportErrors) as info:
         import_path(loaded, folder)
-    assert _short(info.value.errors[0]).startswith("compounds.csv:2: program: AUR-001 belongs to program 'Aurora'")
+    assert _short(info.value.errors[0]).startswith("compounds.csv:2: program: AGR-001 belongs to program 'Ashgrove'")
     assert db_snapshot(loaded) == before
 
 
 def test_a_new_series_for_an_existing_compound_is_updated_and_audited_but_an_empty_cell_clears_nothing(loaded, tmp_path):
-    folder = _write(tmp_path / "ser", {"compounds.csv": CPD_HEAD + "AUR-001,Aurora,S7,hit,\n"})
+    folder = _write(tmp_path / "ser", {"compounds.csv": CPD_HEAD + "AGR-001,Ashgrove,S7,hit,\n"})
     assert import_path(loaded, folder, actor="ana")["tables"]["compounds"]["updated"] == 1
-    row = queries.compounds(loaded).set_index("name").loc["AUR-001"]
+    row = queries.compounds(loaded).set_index("name").loc["AGR-001"]
     assert row["series"] == "S7" and row["smiles"] == "CCO"
     ev = queries.audit_events(loaded, action="update", entity_type="compound").iloc[-1]
     assert ev["before_json"] == '{"series":"S1"}' and ev["after_json"] == '{"series":"S7"}'

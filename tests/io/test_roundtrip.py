@@ -47,7 +47,7 @@ def test_export_writes_quantities_back_as_the_text_they_arrived_with(migrated_en
     potency = (tmp_path / "out" / "potency.csv").read_text(encoding="utf-8")
     assert "12 µM" in potency and "0.45 nM" in potency and "8e-9 M" in potency
     kinetics = (tmp_path / "out" / "kinetics.csv").read_text(encoding="utf-8")
-    assert "AUR-002,jump-dilution,,,3 h," in kinetics  # residence time stays a residence time
+    assert "AGR-002,jump-dilution,,,3 h," in kinetics  # residence time stays a residence time
     assert "0.06 /nM/min" in kinetics
 
 
@@ -87,13 +87,13 @@ def test_a_value_stored_without_its_text_is_exported_in_si(migrated_engine, samp
 
     import_path(migrated_engine, sample_dir)
     with UnitOfWork(migrated_engine) as uow:
-        cid = uow.session.execute(select(Compound.id).where(Compound.name == "BOR-001")).scalar_one()
+        cid = uow.session.execute(select(Compound.id).where(Compound.name == "BKF-001")).scalar_one()
         uow.session.execute(insert(KineticMeasurement), [{
             "compound_id": cid, "method": "competition-kinetics", "kon_per_M_s": 2.5e6, "koff_per_s": 4e-4,
             "koff_given_as": "koff", "fit_json": "{}", "content_hash": "fit-1", "created_at": dt.datetime.now(dt.timezone.utc),
         }])
         uow.commit()
     export_all(migrated_engine, tmp_path / "out")
-    line = [l for l in (tmp_path / "out" / "kinetics.csv").read_text().splitlines() if l.startswith("BOR-001")][0]
-    assert line.startswith("BOR-001,competition-kinetics,2500000.0 /M/s,0.0004 /s,")
+    line = [l for l in (tmp_path / "out" / "kinetics.csv").read_text().splitlines() if l.startswith("BKF-001")][0]
+    assert line.startswith("BKF-001,competition-kinetics,2500000.0 /M/s,0.0004 /s,")
     assert queries.counts(migrated_engine)["kinetic_measurements"] >= 1

@@ -4,7 +4,10 @@
 scientist, a viewer), imports ``seed_demo/*.csv`` in one transaction and fits
 and saves every raw time course listed in ``seed_demo/timecourses/manifest.csv``
 through the same services the CLI uses, so the audit trail records all of it.
-Loading twice changes nothing.
+Loading twice changes nothing, and loading again after using the demo (gate
+decisions, actions, own imports) keeps that work: stored programs and
+compounds keep their stage and settings; only missing rows are added.
+``krt demo open --rebuild`` starts from a fresh database instead.
 """
 
 from __future__ import annotations
@@ -80,7 +83,8 @@ def load_demo(engine: Engine) -> dict[str, Any]:
     migrate.upgrade(engine)
     _ensure_users(engine)
     folder = demo_dir()
-    summary = import_path(engine, folder, actor=IMPORTER, progress=False)
+    # only adds: work done on the demo since (gates, imports, actions) survives a re-load
+    summary = import_path(engine, folder, actor=IMPORTER, progress=False, keep_existing=True)
     saved = 0
     tc_folder = folder / "timecourses"
     for entry in manifest(folder):

@@ -88,6 +88,7 @@ def import_path(
     *,
     progress: bool | None = None,
     stream: TextIO | None = None,
+    keep_existing: bool = False,
 ) -> dict[str, Any]:
     """Import a CSV file, an ``.xlsx`` workbook or a folder of them; returns a summary dict.
 
@@ -96,6 +97,11 @@ def import_path(
     caller commits).  ``progress=None`` shows progress for imports over
     5,000 rows.  Raises :class:`ImportErrors` with every problem; then nothing
     has been written.
+
+    ``keep_existing=True`` only adds: programs and compounds already stored
+    keep their settings, series, SMILES and stage (changed since by gates or
+    other imports), and the file's values for them are ignored instead of
+    refused or applied.  The demo re-load uses it.
     """
     path = Path(path)
     raws, source_errors = gather(path, table)
@@ -103,10 +109,10 @@ def import_path(
     errors = source_errors + [e for e in validated.errors if e not in source_errors]
     if errors:  # report stored-data problems too, so one run lists everything
         if isinstance(target, UnitOfWork):
-            errors += _resolve(target.session, validated)[1]
+            errors += _resolve(target.session, validated, keep_existing)[1]
         else:
             with UnitOfWork(target, write=False) as uow:
-                errors += _resolve(uow.session, validated)[1]
+                errors += _resolve(uow.session, validated, keep_existing)[1]
         order = {raw.label: i for i, raw in enumerate(raws)}
         errors.sort(key=lambda e: (order.get(e.location.file, -1), e.location.line or 0) if e.location else (-2, 0))
         raise ImportErrors(errors)
@@ -115,7 +121,7 @@ def import_path(
     prog.say(f"validated {validated.rows:,} rows from {sum(len(f) for f in validated.files.values())} file(s)")
 
     def run(uow: UnitOfWork) -> dict[str, Any]:
-        return _write(uow.session, validated, actor, prog)
+        return _write(uow.session, validated, actor, prog, keep_existing)
 
     if isinstance(target, UnitOfWork):
         summary = run(target)
@@ -206,13 +212,13 @@ def _db_columns(spec, skip: Iterable[str] = ()) -> dict[str, str]:
     return cols
 
 
-def _write(session: Session, v: Validated, actor: str, prog: Progress) -> dict[str, Any]:
+def _write(session: Session, v: Validated, actor: str, prog: Progress, keep_existing: bool = False) -> dict[str, Any]:
     _check_actor(session, actor)
     now = dt.datetime.now(dt.timezone.utc)
     programs_df = v.tables.get("programs", pd.DataFrame(columns=list(PROGRAMS.names))).drop_duplicates(subset=["program"])
     compounds_df = v.tables.get("compounds", pd.DataFrame(columns=list(COMPOUNDS.names))).drop_duplicates(subset=["compound"])
 
-    snap, errors = _resolve(session, v)
+    snap, errors = _resolve(session, v, keep_existing)
     if errors:
         raise ImportErrors(errors)
     stored_programs, stored_compounds = snap.programs, snap.compounds
@@ -237,7 +243,7 @@ def _write(session: Session, v: Validated, actor: str, prog: Progress) -> dict[s
         created = {r["name"]: r for r in rows}
         for name, r in created.items():
             events.append(_event(actor, "create", "program", program_ids[name], None, _public(r), reason))
-        updated = _update_programs(session, programs_df, stored_programs, actor, reason, events)
+        updated = 0 if keep_existing else _update_programs(session, programs_df, stored_programs, actor, reason, events)
         summary["tables"]["programs"] = _stat(v, "programs", len(rows), updated, len(programs_df) - len(rows) - updated)
 
     # -- compounds (+ stage history of new ones): bulk inserts, one summary event for the rows created
@@ -255,7 +261,7 @@ def _write(session: Session, v: Validated, actor: str, prog: Progress) -> dict[s
                  "note": [f"created by import of {label}" for label in new["_label"].tolist()]},
                 {"from_stage": None, "at": now, "by_user": actor, "decision_id": None},
             )
-        updated = _update_compounds(session, compounds_df[existing], compound_rows, actor, reason, events)
+        updated = 0 if keep_existing else _update_compounds(session, compounds_df[existing], compound_rows, actor, reason, events)
         summary["tables"]["compounds"] = _stat(v, "compounds", n_new, updated, int(existing.sum()) - updated)
         if n_new:
             events.append(_event(actor, "import", Compound.__tablename__, None, None,
@@ -305,7 +311,7 @@ class _Snapshot:
     compounds: pd.DataFrame
 
 
-def _resolve(session: Session, v: Validated) -> tuple[_Snapshot, list[InputError]]:
+def _resolve(session: Session, v: Validated, keep_existing: bool = False) -> tuple[_Snapshot, list[InputError]]:
     """Stored programs and compounds, and the errors of ``v`` against them (references, stage changes)."""
     prog_cols = [Program.id, Program.name] + [getattr(Program, n) for n in _program_db_cols()]
     stored_programs = pd.DataFrame(session.execute(select(*prog_cols)).all(), columns=[c.key for c in prog_cols])
@@ -322,7 +328,8 @@ def _resolve(session: Session, v: Validated) -> tuple[_Snapshot, list[InputError
         set(stored_programs["name"]) | set(programs_df["program"].dropna()),
         set(stored_compounds["name"]) | set(compounds_df["compound"].dropna()),
     )
-    errors += _change_errors(compounds_df.drop_duplicates(subset=["compound"]), compound_rows, program_names)
+    if not keep_existing:  # otherwise stored compounds keep their stage and program
+        errors += _change_errors(compounds_df.drop_duplicates(subset=["compound"]), compound_rows, program_names)
     return _Snapshot(stored_programs, stored_compounds), errors
 
 

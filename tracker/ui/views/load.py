@@ -22,12 +22,12 @@ EXAMPLES: dict[str, dict[str, str]] = {
     "programs": {"program": "Example program", "target": "Example kinase", "intended_profile": "once-daily",
                  "engagement_threshold": "0.7", "onset_max": "3 h", "duration_min": "20 h", "offset_max": "",
                  "dosing_interval": "24 h"},
-    "compounds": {"compound": "EX-0001", "program": "Example program", "series": "EX-amide", "stage": "hit", "smiles": ""},
-    "potency": {"compound": "EX-0001", "assay": "binding 1h", "readout": "KD", "value": "3.2 nM", "incubation": "1 h",
+    "compounds": {"compound": "SAMPLE-0001", "program": "Example program", "series": "sample-amide", "stage": "hit", "smiles": ""},
+    "potency": {"compound": "SAMPLE-0001", "assay": "binding 1h", "readout": "KD", "value": "3.2 nM", "incubation": "1 h",
                 "format": "binding", "date": "2026-01-15", "source": "ELN page 12"},
-    "kinetics": {"compound": "EX-0001", "method": "spr", "kon": "1e6 /M/s", "koff": "1e-4 /s", "date": "2026-02-01",
+    "kinetics": {"compound": "SAMPLE-0001", "method": "spr", "kon": "1e6 /M/s", "koff": "1e-4 /s", "date": "2026-02-01",
                  "source": "SPR run 7"},
-    "pk": {"compound": "EX-0001", "species": "rat", "route": "oral", "half_life": "4 h", "free_cmax": "50 nM", "tmax": "1 h",
+    "pk": {"compound": "SAMPLE-0001", "species": "rat", "route": "oral", "half_life": "4 h", "free_cmax": "50 nM", "tmax": "1 h",
            "dosing_interval": "24 h", "source": "study 3"},
 }
 
