@@ -54,8 +54,10 @@ not dosing advice.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from typing import Any, Callable, Iterator
 
 import numpy as np
+import numpy.typing as npt
 
 from ..errors import InputError
 from .equations import LN2, association, cheng_prusoff_ki, competitive_binding, motulsky_mahan
@@ -80,9 +82,15 @@ FORMATS = ("saturation", "competition")
 _FORMAT_ALIASES = {"saturation": "saturation", "competition": "competition", "competition-binding": "competition"}
 _EPS = np.finfo(float).eps
 
+FloatArray = npt.NDArray[np.float64]
+IntArray = npt.NDArray[np.intp]
+BoolArray = npt.NDArray[np.bool_]
+#: f(x, idx) -> values for the problems ``idx`` at points ``x`` (see :func:`find_root`)
+RootFn = Callable[[FloatArray, IntArray], FloatArray]
+
 
 # ----------------------------------------------------------------------------- root finding
-def find_root(f, lo, hi, *, xtol=1e-13, maxiter=200):
+def find_root(f: RootFn, lo: npt.ArrayLike, hi: npt.ArrayLike, *, xtol: float = 1e-13, maxiter: int = 200) -> FloatArray:
     """Vectorised bracketed root of ``f`` (Chandrupatla 1997, Adv Eng Softw 28:145-149).
 
     ``f(x, idx)`` evaluates the function for the problems ``idx`` (an integer
@@ -149,12 +157,13 @@ def find_root(f, lo, hi, *, xtol=1e-13, maxiter=200):
     return out
 
 
-def _expand_bracket(g, guess, idx_n, *, factor=4.0, max_steps=80):
+def _expand_bracket(g: RootFn, guess: FloatArray, idx_n: int, *, factor: float = 4.0,
+                    max_steps: int = 80) -> tuple[FloatArray, FloatArray]:
     """For decreasing-in-x ``g`` (log-x space), find lo/hi with g(lo) > 0 > g(hi)."""
     lo = guess - np.log(factor)
     hi = guess + np.log(factor)
     step = np.log(16.0)
-    idx = np.arange(idx_n)
+    idx = np.arange(idx_n, dtype=np.intp)
     for _ in range(max_steps):
         glo = g(lo, idx)
         need = glo <= 0
@@ -171,7 +180,7 @@ def _expand_bracket(g, guess, idx_n, *, factor=4.0, max_steps=80):
 
 
 # ----------------------------------------------------------------------------- helpers
-def _arr(x, name, *, allow_zero=False):
+def _arr(x: Any, name: str, *, allow_zero: bool = False) -> FloatArray:
     a = np.asarray(x, dtype=float)
     if a.size and (not np.all(np.isfinite(a)) or np.any(a < 0) or (not allow_zero and np.any(a == 0))):
         raise InputError(f"{name} must be {'non-negative' if allow_zero else 'positive'} and finite")
@@ -185,7 +194,8 @@ def _format(fmt: str) -> str:
         raise InputError(f"unknown assay format {fmt!r}: use saturation or competition") from None
 
 
-def _tracer(tracer_kd, tracer_koff, tracer_conc, tracer_residence_time=None, tracer_kon=None):
+def _tracer(tracer_kd: Any, tracer_koff: Any, tracer_conc: Any, tracer_residence_time: Any = None,
+            tracer_kon: Any = None) -> tuple[FloatArray, FloatArray, FloatArray]:
     """Tracer (KD, koff, concentration); koff may come as a residence time, or KD/koff via kon."""
     if tracer_koff is None and tracer_residence_time is not None:
         tracer_koff = 1.0 / _arr(tracer_residence_time, "tracer residence time")
@@ -201,7 +211,7 @@ def _tracer(tracer_kd, tracer_koff, tracer_conc, tracer_residence_time=None, tra
 
 
 # ----------------------------------------------------------------------------- saturation
-def saturation_fold(koff_t):
+def saturation_fold(koff_t: npt.ArrayLike) -> FloatArray:
     """Fold shift x = apparent KD / KD of the saturation format as a function of tau = koff*t.
 
     Solves x/(1+x) (1 - exp(-tau (1+x))) = 1/2.  Bracket: x >= max(1, ln2/tau - 1)
@@ -214,7 +224,7 @@ def saturation_fold(koff_t):
     lo = np.log(np.maximum(1.0, LN2 / tau - 1.0))
     hi = np.log(np.maximum(3.0, np.log(3.0) / tau))
 
-    def g(lx, idx):
+    def g(lx: FloatArray, idx: IntArray) -> FloatArray:
         x = np.exp(lx)
         tt = tau[idx]
         return x / (1.0 + x) * -np.expm1(-tt * (1.0 + x)) - 0.5
@@ -223,14 +233,15 @@ def saturation_fold(koff_t):
     return np.exp(find_root(g, lo, hi)).reshape(shape)
 
 
-def apparent_kd_saturation(kd, koff, incubation):
+def apparent_kd_saturation(kd: npt.ArrayLike, koff: npt.ArrayLike, incubation: npt.ArrayLike) -> FloatArray:
     """Apparent KD of a saturation experiment read at ``incubation`` (see module doc)."""
     kd, koff, t = np.broadcast_arrays(_arr(kd, "KD"), _arr(koff, "koff"), _arr(incubation, "incubation time"))
     return kd * saturation_fold(koff * t)
 
 
 # ----------------------------------------------------------------------------- competition
-def _competition_ratio(log_i, t, L, k1, k2, k3, k4, tpre):
+def _competition_ratio(log_i: FloatArray, t: FloatArray, L: FloatArray, k1: FloatArray, k2: FloatArray,
+                       k3: FloatArray, k4: FloatArray, tpre: FloatArray) -> FloatArray:
     """Tracer binding with competitor / without, at time t after tracer addition."""
     conc = np.exp(log_i)
     ref = association(t, L, k1, k2)
@@ -246,7 +257,9 @@ def _competition_ratio(log_i, t, L, k1, k2, k3, k4, tpre):
     return b / ref
 
 
-def competition_ic50(kon, koff, incubation, tracer_kd, tracer_koff, tracer_conc, preincubation=0.0):
+def competition_ic50(kon: npt.ArrayLike, koff: npt.ArrayLike, incubation: npt.ArrayLike, tracer_kd: npt.ArrayLike,
+                     tracer_koff: npt.ArrayLike, tracer_conc: npt.ArrayLike,
+                     preincubation: npt.ArrayLike = 0.0) -> FloatArray:
     """IC50 at ``incubation`` for a competitor (kon, koff) against a tracer (Motulsky & Mahan 1984).
 
     ``koff = 0`` (irreversible) is allowed.  Everything broadcasts; returns M.
@@ -264,7 +277,7 @@ def competition_ic50(kon, koff, incubation, tracer_kd, tracer_koff, tracer_conc,
         floor = LN2 / (k3 * (t + tpre)) * (1.0 + L / kd_t)
     guess = np.log(np.maximum(eq, floor))
 
-    def g(lx, idx):
+    def g(lx: FloatArray, idx: IntArray) -> FloatArray:
         return _competition_ratio(lx, t[idx], L[idx], k1[idx], k2[idx], k3[idx], k4[idx], tpre[idx]) - 0.5
 
     lo, hi = _expand_bracket(g, guess, t.size)
@@ -286,28 +299,28 @@ class ApparentAffinity:
     ic50: np.ndarray
     format: str = "saturation"
 
-    def __iter__(self):
+    def __iter__(self) -> Iterator[FloatArray]:
         return iter((self.apparent, self.fold))
 
-    def __len__(self):
+    def __len__(self) -> int:
         return 2
 
-    def __getitem__(self, i):
+    def __getitem__(self, i: int) -> FloatArray:
         return (self.apparent, self.fold)[i]
 
 
 def apparent_affinity(
-    kd,
-    koff,
-    incubation,
+    kd: npt.ArrayLike,
+    koff: npt.ArrayLike,
+    incubation: npt.ArrayLike,
     *,
     format: str = "saturation",
-    tracer_kd=None,
-    tracer_koff=None,
-    tracer_conc=None,
-    preincubation=0.0,
-    tracer_residence_time=None,
-    tracer_kon=None,
+    tracer_kd: npt.ArrayLike | None = None,
+    tracer_koff: npt.ArrayLike | None = None,
+    tracer_conc: npt.ArrayLike | None = None,
+    preincubation: npt.ArrayLike = 0.0,
+    tracer_residence_time: npt.ArrayLike | None = None,
+    tracer_kon: npt.ArrayLike | None = None,
 ) -> ApparentAffinity:
     """Apparent affinity after ``incubation`` s, vectorised over compounds.
 
@@ -351,25 +364,25 @@ def apparent_affinity(
     return ApparentAffinity(ki_app, fold, ic50, fmt)
 
 
-def rule_of_thumb_incubation(koff, multiple: float = 2.0):
+def rule_of_thumb_incubation(koff: npt.ArrayLike, multiple: float = 2.0) -> FloatArray:
     """Rule of thumb: incubate at least ``multiple`` x RT (common practice: 2 x RT)."""
     return multiple / _arr(koff, "koff")
 
 
 def min_incubation(
-    kd,
-    koff,
-    tolerance=1.25,
+    kd: npt.ArrayLike,
+    koff: npt.ArrayLike,
+    tolerance: npt.ArrayLike = 1.25,
     *,
     format: str = "saturation",
-    tracer_kd=None,
-    tracer_koff=None,
-    tracer_conc=None,
-    preincubation=0.0,
-    tracer_residence_time=None,
-    tracer_kon=None,
+    tracer_kd: npt.ArrayLike | None = None,
+    tracer_koff: npt.ArrayLike | None = None,
+    tracer_conc: npt.ArrayLike | None = None,
+    preincubation: npt.ArrayLike = 0.0,
+    tracer_residence_time: npt.ArrayLike | None = None,
+    tracer_kon: npt.ArrayLike | None = None,
     n_scan: int = 96,
-):
+) -> FloatArray:
     """Shortest incubation (s) after which the apparent value stays within ``tolerance``-fold.
 
     Saturation: fold(t) falls monotonically to 1, and fold = x at
@@ -389,7 +402,7 @@ def min_incubation(
     tol = np.asarray(tolerance, dtype=float)
     if fmt == "saturation":
         kd, koff, tol = np.broadcast_arrays(kd, koff, tol)
-        return np.log(2.0 * tol / (tol - 1.0)) / (1.0 + tol) / koff
+        return np.asarray(np.log(2.0 * tol / (tol - 1.0)) / (1.0 + tol) / koff, dtype=np.float64)
     kd_t, koff_t, L = _tracer(tracer_kd, tracer_koff, tracer_conc, tracer_residence_time, tracer_kon)
     tpre = _arr(preincubation, "pre-incubation time", allow_zero=True)
     arrs = np.broadcast_arrays(kd, koff, kd_t, koff_t, L, tpre, tol)
@@ -407,9 +420,9 @@ def min_incubation(
     grid = np.exp(np.linspace(np.log(t_lo), np.log(t_hi), n_scan).T)  # (n, n_scan)
     n = kd.size
 
-    def fold_at(tt, rows):
+    def fold_at(tt: FloatArray, rows: IntArray) -> FloatArray:
         ic = competition_ic50(kon[rows], koff[rows], tt, kd_t[rows], koff_t[rows], L[rows], tpre[rows])
-        return cheng_prusoff_ki(ic, L[rows], kd_t[rows]) / kd[rows]
+        return np.asarray(cheng_prusoff_ki(ic, L[rows], kd_t[rows]) / kd[rows], dtype=np.float64)
 
     rows = np.repeat(np.arange(n), n_scan)
     f = fold_at(grid.ravel(), rows).reshape(n, n_scan)
@@ -428,7 +441,7 @@ def min_incubation(
         edge = np.where(above, tol[sel], 1.0 / tol[sel])
         sign = np.where(above, 1.0, -1.0)
 
-        def g(log_t, idx):  # > 0 outside the band at that edge, <= 0 inside
+        def g(log_t: FloatArray, idx: IntArray) -> FloatArray:  # > 0 outside the band at that edge, <= 0 inside
             return sign[idx] * (fold_at(np.exp(log_t), sel[idx]) - edge[idx])
 
         x = find_root(g, lo, hi, xtol=1e-12)
@@ -437,15 +450,15 @@ def min_incubation(
 
 
 def assay_floor(
-    kon,
-    incubation,
+    kon: npt.ArrayLike,
+    incubation: npt.ArrayLike,
     *,
     format: str = "saturation",
-    tracer_kd=None,
-    tracer_koff=None,
-    tracer_conc=None,
-    preincubation=0.0,
-):
+    tracer_kd: npt.ArrayLike | None = None,
+    tracer_koff: npt.ArrayLike | None = None,
+    tracer_conc: npt.ArrayLike | None = None,
+    preincubation: npt.ArrayLike = 0.0,
+) -> FloatArray:
     """Tightest apparent affinity (M) an incubation can report for a compound with this kon.
 
     Saturation: an infinitely slow dissociator (koff -> 0) gives occupancy
@@ -464,7 +477,8 @@ def assay_floor(
     return cheng_prusoff_ki(ic50, L, kd_t)
 
 
-def near_assay_floor(potency, kon, incubation, *, factor: float = 2.0, **floor_kw):
+def near_assay_floor(potency: npt.ArrayLike, kon: npt.ArrayLike, incubation: npt.ArrayLike, *, factor: float = 2.0,
+                     **floor_kw: Any) -> BoolArray:
     """True where a reported potency (M) lies within ``factor``-fold of the assay floor.
 
     Such a value says little about the true affinity: the compound may be far
@@ -474,7 +488,7 @@ def near_assay_floor(potency, kon, incubation, *, factor: float = 2.0, **floor_k
     if not factor >= 1.0:
         raise InputError("factor must be >= 1")
     floor = assay_floor(kon, incubation, **floor_kw)
-    return np.asarray(_arr(potency, "potency")) <= factor * floor
+    return np.asarray(_arr(potency, "potency") <= factor * floor, dtype=bool)
 
 
 # ----------------------------------------------------------------------------- Ki shift -> RT
@@ -501,7 +515,7 @@ class ResidenceTimeBounds:
     kd_at_rt_high: np.ndarray
     consistent: np.ndarray
     shift_detected: np.ndarray
-    notes: tuple = field(default_factory=tuple)
+    notes: tuple[str, ...] = field(default_factory=tuple)
     #: per element: ``consistent``; ``kon-below-range`` (the shift implies an RT so long that
     #: the long-incubation potency needs a kon below the range: strongly slow binding, not a
     #: contradiction); ``kon-above-range`` (the potency needs a kon above the range, or is
@@ -510,15 +524,15 @@ class ResidenceTimeBounds:
     verdict: np.ndarray | None = None
 
 
-def _shift_ratio(tau_s, tau_l):
+def _shift_ratio(tau_s: FloatArray, tau_l: FloatArray) -> FloatArray:
     return saturation_fold(tau_s) / saturation_fold(tau_l)
 
 
-def _rt_for_ratio(target, t_s, t_l):
+def _rt_for_ratio(target: FloatArray, t_s: FloatArray, t_l: FloatArray) -> FloatArray:
     """RT with x(t_s/RT)/x(t_l/RT) = target, for 1 < target < t_l/t_s (increasing in RT)."""
     target, t_s, t_l = (a.ravel() for a in np.broadcast_arrays(target, t_s, t_l))
 
-    def g(log_rt, idx):
+    def g(log_rt: FloatArray, idx: IntArray) -> FloatArray:
         rt = np.exp(log_rt)
         return _shift_ratio(t_s[idx] / rt, t_l[idx] / rt) - target[idx]
 
@@ -539,7 +553,7 @@ def _rt_for_ratio(target, t_s, t_l):
     return np.exp(find_root(g, lo, hi, xtol=1e-12))
 
 
-def _rt_for_kon(kon, t_l, ki_long):
+def _rt_for_kon(kon: FloatArray, t_l: FloatArray, ki_long: FloatArray) -> FloatArray:
     """RT at which a compound of this kon reads ``ki_long`` after t_l (saturation-equivalent).
 
     kon(RT) = x(t_l/RT)/(RT ki_long) falls monotonically from inf (RT -> 0) to
@@ -552,9 +566,9 @@ def _rt_for_kon(kon, t_l, ki_long):
     if ok.any():
         kk, tl, kii = kon[ok], t_l[ok], ki[ok]
 
-        def g(log_rt, idx):
+        def g(log_rt: FloatArray, idx: IntArray) -> FloatArray:
             rt = np.exp(log_rt)
-            return saturation_fold(tl[idx] / rt) / (rt * kii[idx]) - kk[idx]
+            return np.asarray(saturation_fold(tl[idx] / rt) / (rt * kii[idx]) - kk[idx], dtype=np.float64)
 
         # RT = 1/(kon ki) reads at equilibrium (x=1 needs RT->0); x >= 1 so kon(RT) >= 1/(RT ki)
         lo = np.log(1.0 / (kk * kii)) - 1e-9
@@ -570,12 +584,12 @@ def _rt_for_kon(kon, t_l, ki_long):
 
 
 def residence_time_bounds(
-    ratio,
-    short_incubation,
-    long_incubation,
-    ki_long,
+    ratio: npt.ArrayLike,
+    short_incubation: npt.ArrayLike,
+    long_incubation: npt.ArrayLike,
+    ki_long: npt.ArrayLike,
     *,
-    kon_range=(1e5, 1e8),
+    kon_range: tuple[float, float] = (1e5, 1e8),
     ratio_tolerance: float = 1.5,
 ) -> ResidenceTimeBounds:
     """Interval of residence time consistent with a Ki shift between two incubations.
@@ -665,7 +679,9 @@ def residence_time_bounds(
         notes.append("long-incubation potency is below the assay floor for the highest kon: kon must be higher")
     if np.any(consistent & ~np.isfinite(high)):
         notes.append("no upper bound: the long-incubation potency may sit at the assay floor")
-    rs = lambda a: a.reshape(shape)  # noqa: E731
+    def rs(a: npt.NDArray[Any]) -> npt.NDArray[Any]:
+        return a.reshape(shape)
+
     return ResidenceTimeBounds(
         rs(low), rs(high), rs(lo_rt), rs(hi_rt), rs(kon_low_rt), rs(kon_high_rt), rs(kd_at_low), rs(kd_at_high),
         rs(consistent), rs(shift_detected), tuple(notes), rs(verdict),
