@@ -80,11 +80,3 @@ def test_fit_table_takes_the_tracer_intervals(plate):
     r = fit_table("competition-kinetics", df, tracer_kon=K1, tracer_koff=K2, tracer_conc=L,
                   tracer_kon_ci=(K1 / 1.2, K1 * 1.2), tracer_koff_ci=None, n_monte_carlo=40, seed=1)
     assert r.extras["tracer_uncertainty"]["n_draws"] == 40 and r.ci_kind == "monte-carlo"
-
-
-def test_high_receptor_warns_that_the_closed_form_assumes_no_tracer_depletion(plate):
-    t, y, I = plate
-    r = fit_competition_kinetics(t, y, I, tracer_kon=K1, tracer_koff=K2, tracer_conc=L, receptor_conc=5e-9)
-    assert "tracer-depletion" in r.warning_codes
-    quiet = fit_competition_kinetics(t, y, I, tracer_kon=K1, tracer_koff=K2, tracer_conc=L, receptor_conc=1e-12)
-    assert "tracer-depletion" not in quiet.warning_codes

@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 import math
-from typing import Any, Sequence
+from typing import Any, Callable, Mapping, Sequence
 
 import numpy as np
 import numpy.typing as npt
@@ -28,7 +28,7 @@ from .common import (
     _rate_summary,
     _rt_lower_bound,
 )
-from .curves import CurveInfo
+from .curves import CurveInfo, competition_with_depletion
 from .engine import (
     HILL_LIMITS,
     IC50_LIMITS,
@@ -71,6 +71,23 @@ def _check_coaddition(t: FloatArray, y: FloatArray, idx: IntArray, curves: Seque
                        "dissociation (tracer displaced or washed out)")
 
 
+def _design(ctx: Mapping[str, float], t: FloatArray, idx: IntArray, concs: FloatArray) -> Callable[[Params], FloatArray]:
+    """Design columns (shape, 1) of the competition model: closed form, or the ODE with depletion."""
+    ones = np.ones_like(t)
+
+    def design(p: Params) -> FloatArray:
+        if "receptor_conc" in ctx:
+            r0 = ctx["receptor_conc"]
+            s = competition_with_depletion(t, idx, concs, ctx["tracer_conc"], r0, ctx["tracer_kon"],
+                                           ctx["tracer_koff"], p["kon"], p["koff"]) / r0
+        else:
+            s = eq.motulsky_mahan_levels(t, idx, ctx["tracer_conc"], ctx["tracer_kon"], ctx["tracer_koff"], concs,
+                                         p["kon"], p["koff"], 1.0)
+        return np.column_stack([s, ones])
+
+    return design
+
+
 def _log_sd(ci: tuple[float, float] | None, centre: float, what: str) -> float:
     """Standard deviation of log10 of a constant from its 95% interval (log-normal; 0 without an interval)."""
     if ci is None:
@@ -95,22 +112,17 @@ def _tracer_monte_carlo(b: _Builder, fit: _Fit, kon_ci: tuple[float, float] | No
     draws_off = ctx["tracer_koff"] * 10 ** (sd_off * rng.standard_normal(n))
     t, y, idx = prob.x, prob.y, prob.idx
     concs = np.array([c.conc for c in prob.curves])
-    ones = np.ones_like(t)
     z0 = [math.log10(fit.value("kon")), math.log10(fit.value("koff"))]
     logs = []
     for kon_j, koff_j in zip(draws_on, draws_off):
         ctx_j = dict(ctx, tracer_kon=float(kon_j), tracer_koff=float(koff_j))
-        pj = _Problem("motulsky-mahan", prob.params, t, y, idx, prob.curves, ctx_j, weights="none")
+        pj = _Problem(prob.kind, prob.params, t, y, idx, prob.curves, ctx_j, weights="none")
         pj.w = prob.w
 
-        def design(p: Params, c: dict[str, float] = ctx_j) -> FloatArray:
-            s = eq.motulsky_mahan_levels(t, idx, c["tracer_conc"], c["tracer_kon"], c["tracer_koff"], concs,
-                                         p["kon"], p["koff"], 1.0)
-            return np.column_stack([s, ones])
-
         try:
-            fj = _run_vp(pj, ["kon", "koff"], design, lambda c: {"bmax": float(c[0]), "baseline": float(c[1])},
-                         [z0], max_nfev)
+            fj = _run_vp(pj, ["kon", "koff"], _design(ctx_j, t, idx, concs),
+                         lambda c: {"bmax": float(c[0]), "baseline": float(c[1])}, [z0], max_nfev,
+                         diff_step=1e-5 if "receptor_conc" in ctx_j else None)
         except FitError:
             continue
         logs.append((math.log10(fj.value("kon")), math.log10(fj.value("koff"))))
@@ -150,8 +162,13 @@ def _tracer_monte_carlo(b: _Builder, fit: _Fit, kon_ci: tuple[float, float] | No
 
 def _tracer_alone_check(b: _Builder, t: FloatArray, y: FloatArray, idx: IntArray, curves: Sequence[CurveInfo],
                         tracer: tuple[float, float, float], kon_ci: tuple[float, float] | None,
-                        koff_ci: tuple[float, float] | None, weights: str, max_nfev: int | None) -> None:
-    """Fit the tracer-alone curve (competitor 0) and compare its kobs with k1*L + k2."""
+                        koff_ci: tuple[float, float] | None, weights: str, max_nfev: int | None,
+                        receptor_conc: float | None = None) -> None:
+    """Fit the tracer-alone curve (competitor 0) and compare its kobs with k1*L + k2.
+
+    With a receptor concentration the expected rate is read, like the data's, from a one-phase fit
+    to the exact depletion curve (:func:`tracker.kinetics.equations.depletion_association`).
+    """
     from .association import _run_rise
 
     k_on, k_off, L = tracer
@@ -168,17 +185,32 @@ def _tracer_alone_check(b: _Builder, t: FloatArray, y: FloatArray, idx: IntArray
     iv = _intervals(f, "covariance")
     lo, hi = _ci(f, iv, "kobs")
     kobs = f.value("kobs")
-    expected = k_on * L + k_off
-    e_lo = (kon_ci[0] if kon_ci else k_on) * L + (koff_ci[0] if koff_ci else k_off)
-    e_hi = (kon_ci[1] if kon_ci else k_on) * L + (koff_ci[1] if koff_ci else k_off)
+    ts = t[sel]
+
+    def rate(kon: float, koff: float) -> float:
+        if receptor_conc is None:
+            return kon * L + koff
+        # with depletion the curve is not one exponential: read the expected kobs the same way as the data's,
+        # from a one-phase fit to the exact depletion curve at the same times
+        pred = eq.depletion_association(ts, L, receptor_conc, kon, koff) / receptor_conc
+        try:
+            return _run_rise(ts, pred, max_nfev).value("kobs")
+        except FitError:
+            return kon * math.sqrt(max((receptor_conc + L + koff / kon) ** 2 - 4.0 * receptor_conc * L, 0.0))
+
+    expected = rate(k_on, k_off)
+    corners = [rate(a, c) for a in ((kon_ci[0], kon_ci[1]) if kon_ci else (k_on,))
+               for c in ((koff_ci[0], koff_ci[1]) if koff_ci else (k_off,))]
+    e_lo, e_hi = min(corners + [expected]), max(corners + [expected])
     b.extras["tracer_check"] = {"kobs_tracer_alone_per_s": kobs, "kobs_ci95_per_s": [lo, hi],
                                 "expected_kobs_per_s": expected, "expected_range_per_s": [e_lo, e_hi]}
     if np.isfinite(lo) and np.isfinite(hi) and (hi < e_lo or lo > e_hi):
         b.warn("tracer-constants-disagree", f"the tracer-alone curve rises with kobs {rate1(kobs)} (95% CI "
                f"{rate1(lo)} to {rate1(hi)}), but the given tracer constants predict k1*L + k2 = {rate1(expected)}: "
                "the tracer "
-               "kon/koff (or its concentration) do not describe this assay, so the competitor's kon and koff are "
-               "biased; re-measure the tracer under these conditions")
+               "kon/koff (or its concentration) do not describe this assay, or tracer depletion changes its rate "
+               "(give the receptor concentration), so the competitor's kon and koff are biased; re-measure the "
+               "tracer under these conditions")
 
 
 def _tracer_constants(kon: float | None, koff: float | None, conc: float | None) -> tuple[float, float, float]:
@@ -225,10 +257,12 @@ def fit_competition_kinetics(
     weights : {"none", "proportional", "poisson"}
         Noise model.
     receptor_conc : float, optional
-        Total receptor, M.  The closed form assumes no depletion; when the
-        tracer bound at equilibrium exceeds 10% of the tracer added, the fit
-        warns ``tracer-depletion`` (the depletion-aware model is available for
-        association only).
+        Total receptor, M: switches to the depletion-aware model, the same
+        scheme with free tracer L0 - RL and free competitor I0 - RI,
+        integrated numerically (no closed form exists; see
+        :func:`tracker.kinetics.fitting.curves.competition_with_depletion`).
+        Slower (an ODE per evaluation) but right when the receptor is not far
+        below the tracer and competitor concentrations.
 
     Raises
     ------
@@ -266,6 +300,9 @@ def fit_competition_kinetics(
 
     def shape(k3: float, k4: float) -> FloatArray:
         return eq.motulsky_mahan_levels(t, idx, k_conc, k_on, k_off, concs, k3, k4, 1.0)
+
+    if receptor_conc is not None and not (np.isfinite(receptor_conc) and receptor_conc > 0):
+        raise FitError("the receptor concentration must be a positive number (M)")
 
     # starting values: a 12 x 12 grid over (koff, Ki), evaluated at once on the distinct
     # (concentration, time) pairs, with Bmax and baseline solved in closed form per grid point
@@ -315,6 +352,13 @@ def fit_competition_kinetics(
     fit = _run_vp(prob, ["kon", "koff"], lambda p: np.column_stack([shape(p["kon"], p["koff"]), ones]),
                   lambda c: {"bmax": float(c[0]), "baseline": float(c[1])},
                   [[math.log10(a), math.log10(c_)] for _, a, c_, _co in cand[:3]], max_nfev)
+    if receptor_conc is not None:
+        # depletion-aware model (ODE), started from the closed-form fit
+        ctx_d = dict(ctx, receptor_conc=float(receptor_conc))
+        prob_d = _Problem("motulsky-mahan-depletion", ps, t, y, idx, curves, ctx_d, weights=weights)
+        fit = _run_vp(prob_d, ["kon", "koff"], _design(ctx_d, t, idx, concs),
+                      lambda c: {"bmax": float(c[0]), "baseline": float(c[1])},
+                      [[math.log10(fit.value("kon")), math.log10(fit.value("koff"))]], max_nfev, diff_step=1e-5)
     b = _Builder(method, weights)
     _check_strict([fit], strict, b)
     ivs = _intervals(fit, intervals)
@@ -328,16 +372,14 @@ def fit_competition_kinetics(
     _kon_check(b, k3)
     if tracer_kon_ci is not None or tracer_koff_ci is not None:
         _tracer_monte_carlo(b, fit, tracer_kon_ci, tracer_koff_ci, n_monte_carlo, seed, max_nfev)
-    _tracer_alone_check(b, t, y, idx, curves, tracer, tracer_kon_ci, tracer_koff_ci, weights, max_nfev)
+    _tracer_alone_check(b, t, y, idx, curves, tracer, tracer_kon_ci, tracer_koff_ci, weights, max_nfev, receptor_conc)
     if receptor_conc is not None:
-        if not (np.isfinite(receptor_conc) and receptor_conc > 0):
-            raise FitError("the receptor concentration must be a positive number (M)")
         bound = float(eq.depletion_association(np.inf, k_conc, receptor_conc, k_on, k_off))
-        b.extras["depletion"] = {"receptor_conc_M": float(receptor_conc), "tracer_fraction_bound": bound / k_conc}
-        if bound > 0.1 * k_conc:
-            b.warn("tracer-depletion", f"{100 * bound / k_conc:.0f}% of the tracer is bound at equilibrium (receptor "
-                   f"{conc(receptor_conc)}): the Motulsky-Mahan closed form assumes free tracer equal to the added "
-                   "tracer, so k3 and k4 are biased; lower the receptor concentration below ~10% tracer bound")
+        b.extras["depletion"] = {
+            "model": "R + L <-> RL, R + I <-> RI with free tracer and competitor depleted; integrated by scipy "
+                     "solve_ivp (LSODA, analytic Jacobian, rtol 1e-9)",
+            "receptor_conc_M": float(receptor_conc), "tracer_fraction_bound_alone": bound / k_conc,
+        }
     tmax = float(t.max())
     ka = k_on * k_conc + k_off
     b.extras.update({"tracer_kobs_per_s": ka, "window_s": tmax, "koff_times_window": k4 * tmax})

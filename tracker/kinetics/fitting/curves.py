@@ -138,6 +138,60 @@ def cf_competition(p: Mapping[str, float], x: FloatArray, idx: IntArray, curves:
     return p["baseline"] + b
 
 
+def competition_with_depletion(t: FloatArray, idx: IntArray, levels: FloatArray, tracer_conc: float,
+                               receptor_conc: float, k1: float, k2: float, k3: float, k4: float) -> FloatArray:
+    """Tracer bound RL(t) (M) of R + L <-> RL (k1, k2), R + I <-> RI (k3, k4), both added at t = 0, with
+    ligand depletion: free L = L0 - RL, free I = I0 - RI, free R = R0 - RL - RI.
+
+    No closed form exists with depletion, so the scheme is integrated (scipy solve_ivp, LSODA with the
+    analytic Jacobian, rtol 1e-9), all competitor levels in one call.  With R0 << L0 it is the
+    Motulsky & Mahan 1984 (Mol Pharmacol 25:1-9) closed form; with I0 = 0 it is
+    :func:`tracker.kinetics.equations.depletion_association`.
+    """
+    from scipy.integrate import solve_ivp
+
+    t = np.asarray(t, dtype=np.float64)
+    lv = np.asarray(levels, dtype=np.float64)
+    n = lv.size
+    L0, R0 = float(tracer_conc), float(receptor_conc)
+
+    def rhs(_: float, s: FloatArray) -> FloatArray:
+        rl, ri = s[:n], s[n:]
+        r = R0 - rl - ri
+        return np.concatenate([k1 * r * (L0 - rl) - k2 * rl, k3 * r * (lv - ri) - k4 * ri])
+
+    def jac(_: float, s: FloatArray) -> FloatArray:
+        rl, ri = s[:n], s[n:]
+        r = R0 - rl - ri
+        J = np.zeros((2 * n, 2 * n))
+        d = np.arange(n)
+        J[d, d] = -k1 * (L0 - rl) - k1 * r - k2
+        J[d, n + d] = -k1 * (L0 - rl)
+        J[n + d, d] = -k3 * (lv - ri)
+        J[n + d, n + d] = -k3 * (lv - ri) - k3 * r - k4
+        return J
+
+    tu, inv = np.unique(t, return_inverse=True)
+    out = np.zeros((n, tu.size))
+    pos = tu > 0
+    if np.any(pos):
+        sol = solve_ivp(rhs, (0.0, float(tu[pos][-1])), np.zeros(2 * n), method="LSODA", t_eval=tu[pos], jac=jac,
+                        rtol=1e-9, atol=1e-12 * min(R0, L0))
+        if not sol.success or sol.y.shape[1] != int(pos.sum()):
+            return np.full(t.shape, np.nan)
+        out[:, pos] = sol.y[:n]
+    return np.asarray(out[np.asarray(idx, dtype=np.intp), inv.ravel()], dtype=np.float64)
+
+
+def cf_competition_depletion(p: Mapping[str, float], x: FloatArray, idx: IntArray, curves: Sequence[CurveInfo],
+                             context: Mapping[str, float]) -> FloatArray:
+    levels = np.array([c.conc for c in curves], dtype=np.float64)
+    r0 = context["receptor_conc"]
+    rl = competition_with_depletion(x, idx, levels, context["tracer_conc"], r0, context["tracer_kon"],
+                                    context["tracer_koff"], p["kon"], p["koff"])
+    return p["baseline"] + p["bmax"] * rl / r0
+
+
 def cf_jump(p: Mapping[str, float], x: FloatArray, idx: IntArray, curves: Sequence[CurveInfo],
             context: Mapping[str, float]) -> FloatArray:
     ctrl = _is_control(curves, idx)
@@ -190,6 +244,7 @@ CURVE_FUNCTIONS: dict[str, CurveFunction] = {
     "rise-per-curve": cf_rise_per_curve,
     "rise-free-plateaus": cf_rise_free_plateaus,
     "motulsky-mahan": cf_competition,
+    "motulsky-mahan-depletion": cf_competition_depletion,
     "jump-dilution": cf_jump,
     "washout-recovery": cf_washout,
     "logistic4": cf_logistic,
