@@ -145,3 +145,19 @@ def test_weighted_association_intervals_cover_kon_and_koff(capsys):
               f"koff {hits['koff'] / n:.2f}")
     # 100 replicates: binomial se ~2.2%; 0.88-0.995 is a ~3-sigma band (common practice)
     assert 0.88 <= hits["kon"] / n <= 0.995 and 0.88 <= hits["koff"] / n <= 0.995
+
+
+def test_replicated_controls_keep_their_role_in_a_jump_dilution():
+    # P = p0 + vs*t + (vi - vs)*(1 - exp(-kobs*t))/kobs (Copeland, Evaluation of Enzyme Inhibitors; from memory)
+    rng = np.random.default_rng(9)
+    t = np.linspace(0, 7200, 40)
+    rows = []
+    for rep in ("r1", "r2"):
+        rows += [(a, 3 + 2.0 * a + rng.normal(0, 15), "control", rep) for a in t]
+        rows += [(a, eq.jump_dilution_progress(a, 0.1, 2.0, KOFF, 3.0) + rng.normal(0, 15), "cpd", rep) for a in t]
+    df = pd.DataFrame(rows, columns=["time", "signal", "curve", "replicate"])
+    r = fit_table("jump-dilution", df)
+    roles = {c.label: c.role for c in r.model.curves}
+    assert roles == {"control · r1": "control", "control · r2": "control", "cpd · r1": "sample", "cpd · r2": "sample"}
+    assert "no-control" not in r.warning_codes
+    assert r.estimates["kobs"] == pytest.approx(KOFF, rel=0.2)

@@ -19,16 +19,16 @@ from .results import _Builder
 
 RT_LOWER_BOUND_FRACTION = 0.2  # < 20% of the signal dissociated: RT is a lower bound (brief)
 TREND_P = 0.01  # a curve "rises" or "falls" when Spearman's rank correlation with time (or dose) has p < 0.01
-REPLICATE_SEP = " / "  # curve label of a replicate: "<curve> / <replicate>"
+REPLICATE_SEP = " · "  # curve label of a replicate: "<curve> · <replicate>" (as tracker.io.timecourse writes it)
 
 
 def _base_label(name: str) -> str:
-    """The curve part of a replicate label ("control / r2" -> "control"), lower case."""
+    """The curve part of a replicate label ("control · r2" -> "control"), lower case."""
     return name.split(REPLICATE_SEP)[0].strip().lower()
 
 
 def replicate_labels(curve: npt.ArrayLike | None, replicate: npt.ArrayLike | None, n: int) -> npt.NDArray[np.str_] | None:
-    """Per-point curve labels that keep replicates apart: ``"<curve> / <replicate>"``.
+    """Per-point curve labels that keep replicates apart: ``"<curve> · <replicate>"``.
 
     Replicate curves of one condition are then fitted jointly: they share the
     method's rate constants and keep their own per-curve amplitudes.
