@@ -30,12 +30,16 @@ Simulations are decision support, not dosing advice.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
+import numpy.typing as npt
 from scipy.special import lambertw
 
 from ..errors import InputError
 from .equations import LN2
+
+FloatArray = npt.NDArray[np.float64]
 
 __all__ = [
     "elimination_rate",
@@ -51,24 +55,24 @@ ROUTES = ("oral", "iv")
 _NEAR = 1e-5  # |ka-ke|/(ka+ke) below which the Bateman divided difference uses its derivative
 
 
-def elimination_rate(half_life):
+def elimination_rate(half_life: npt.ArrayLike) -> FloatArray:
     """ke = ln2 / t1/2 (1/s)."""
     hl = np.asarray(half_life, dtype=float)
     if np.any(~np.isfinite(hl)) or np.any(hl <= 0):
         raise InputError("half-life must be positive and finite")
-    return LN2 / hl
+    return np.asarray(LN2 / hl, dtype=np.float64)
 
 
-def bateman_tmax(ka, ke):
+def bateman_tmax(ka: npt.ArrayLike, ke: npt.ArrayLike) -> FloatArray:
     """tmax = ln(ka/ke)/(ka - ke) (IUPAC Gold Book); 1/k at ka = ke (Garrett 1994)."""
-    ka, ke = np.broadcast_arrays(np.asarray(ka, dtype=float), np.asarray(ke, dtype=float))
-    v = np.log(ka / ke)
+    ka_, ke_ = np.broadcast_arrays(np.asarray(ka, dtype=float), np.asarray(ke, dtype=float))
+    v = np.log(ka_ / ke_)
     with np.errstate(invalid="ignore", divide="ignore"):
         r = np.where(v == 0, 1.0, v / np.expm1(np.where(v == 0, 1.0, v)))
-    return r / ke
+    return np.asarray(r / ke_, dtype=np.float64)
 
 
-def _h(v):
+def _h(v: FloatArray) -> tuple[FloatArray, FloatArray]:
     """v/expm1(v) and its derivative, accurate near v = 0."""
     small = np.abs(v) < 1e-3
     vs = np.where(small, 1.0, v)
@@ -78,7 +82,7 @@ def _h(v):
     return h, dh
 
 
-def absorption_rate_from_tmax(tmax, ke):
+def absorption_rate_from_tmax(tmax: npt.ArrayLike, ke: npt.ArrayLike) -> FloatArray:
     """ka (1/s) from tmax and ke for the Bateman function.
 
     With T = ke tmax and v = ln(ka/ke), tmax = ln(ka/ke)/(ka-ke) reads
@@ -101,16 +105,16 @@ def absorption_rate_from_tmax(tmax, ke):
     for _ in range(4):
         h, dh = _h(v)
         v = v - (h - T) / dh
-    return ke * np.exp(v)
+    return np.asarray(ke * np.exp(v), dtype=np.float64)
 
 
-def accumulation_ratio(ke, tau):
+def accumulation_ratio(ke: npt.ArrayLike, tau: npt.ArrayLike) -> FloatArray:
     """R = 1/(1 - exp(-ke tau)) (textbook PK: Rowland & Tozer)."""
-    return 1.0 / -np.expm1(-np.asarray(ke, dtype=float) * np.asarray(tau, dtype=float))
+    return np.asarray(1.0 / -np.expm1(-np.asarray(ke, dtype=float) * np.asarray(tau, dtype=float)), dtype=np.float64)
 
 
 # ----------------------------------------------------------------------------- regimen
-def _geom(k, tau, m):
+def _geom(k: Any, tau: Any, m: float) -> tuple[Any, Any]:
     """sum_{i=0..m} exp(-k i tau), and sum_{i=0..m} i exp(-k i tau).  m may be inf."""
     with np.errstate(invalid="ignore", over="ignore"):
         x = k * tau
@@ -140,23 +144,24 @@ class Regimen:
     the single-dose free Cmax (C0 for iv).
     """
 
-    oral: np.ndarray
-    ke: np.ndarray
-    ka: np.ndarray
-    scale: np.ndarray
-    tau: np.ndarray
+    oral: npt.NDArray[np.bool_]
+    ke: FloatArray
+    ka: FloatArray
+    scale: FloatArray
+    tau: FloatArray
     n_doses: int
-    tmax: np.ndarray
-    cmax: np.ndarray
+    tmax: FloatArray
+    cmax: FloatArray
 
     @classmethod
-    def build(cls, route, cmax, half_life, tmax=None, dosing_interval=None, n_doses=1):
+    def build(cls, route: Any, cmax: npt.ArrayLike, half_life: npt.ArrayLike, tmax: npt.ArrayLike | None = None,
+              dosing_interval: npt.ArrayLike | None = None, n_doses: int = 1) -> Regimen:
         route = np.asarray(route)
         bad = ~np.isin(route, ROUTES)
         if np.any(bad):
             raise InputError(f"unknown route {route[bad].ravel()[0]!r}: use oral or iv")
-        cmax = np.asarray(cmax, dtype=float)
-        if np.any(~np.isfinite(cmax)) or np.any(cmax <= 0):
+        cmax_a = np.asarray(cmax, dtype=float)
+        if np.any(~np.isfinite(cmax_a)) or np.any(cmax_a <= 0):
             raise InputError("free Cmax must be positive and finite")
         ke = elimination_rate(half_life)
         oral = route == "oral"
@@ -168,39 +173,40 @@ class Regimen:
                 raise InputError("tmax must be positive and finite for oral dosing")
         else:
             tmax_a = np.zeros(())
+        tau_a: Any
         if dosing_interval is None:
-            tau = np.inf
+            tau_a = np.inf
         else:
-            tau = np.asarray(dosing_interval, dtype=float)
-            if np.any(~np.isfinite(tau)) or np.any(tau <= 0):
+            tau_a = np.asarray(dosing_interval, dtype=float)
+            if np.any(~np.isfinite(tau_a)) or np.any(tau_a <= 0):
                 raise InputError("dosing interval must be positive and finite")
         n = int(n_doses)
         if n < 1 or n != n_doses:
             raise InputError("number of doses must be a whole number >= 1")
         if n > 1 and dosing_interval is None:
             raise InputError("repeat dosing needs a dosing interval")
-        oral, ke, cmax, tmax_a, tau = np.broadcast_arrays(oral, ke, cmax, tmax_a, np.asarray(tau, dtype=float))
-        oral, ke, cmax, tmax_a, tau = (np.array(a, dtype=dt).ravel() for a, dt in
-                                       ((oral, bool), (ke, float), (cmax, float), (tmax_a, float), (tau, float)))
+        oral_b, ke_b, cmax_b, tmax_b, tau_b = np.broadcast_arrays(oral, ke, cmax_a, tmax_a, np.asarray(tau_a, dtype=float))
+        oral = np.array(oral_b, dtype=bool).ravel()
+        ke, cmax_f, tmax_a, tau = (np.array(a, dtype=np.float64).ravel() for a in (ke_b, cmax_b, tmax_b, tau_b))
         tm = np.where(oral, tmax_a, 1.0 / ke)  # dummy for iv rows
         ka = np.where(oral, absorption_rate_from_tmax(tm, ke), ke)
         shape1 = _single_shape(tm, ka, ke)
-        scale = np.where(oral, cmax / shape1, cmax)
-        return cls(oral, ke, ka, scale, tau, n, np.where(oral, tmax_a, 0.0), cmax)
+        scale = np.where(oral, cmax_f / shape1, cmax_f)
+        return cls(oral, ke, ka, scale, tau, n, np.where(oral, tmax_a, 0.0), cmax_f)
 
     # -- evaluation -----------------------------------------------------------
-    def local(self, m, s, rows=None):
+    def local(self, m: float, s: Any, rows: Any = None) -> tuple[FloatArray, FloatArray]:
         """(C, dC/dt) at time ``s`` (broadcast against rows) after dose ``m``, doses 0..m given.
 
         ``m`` is an int or ``inf`` (steady state); ``s`` >= 0.  ``rows``
         selects compounds (default all); ``s`` must broadcast to (rows, ...).
         """
         r = slice(None) if rows is None else rows
-        ke = self.ke[r]
-        ka = self.ka[r]
-        tau = self.tau[r]
-        oral = self.oral[r]
-        scale = self.scale[r]
+        ke: Any = self.ke[r]
+        ka: Any = self.ka[r]
+        tau: Any = self.tau[r]
+        oral: Any = self.oral[r]
+        scale: Any = self.scale[r]
         s = np.asarray(s, dtype=float)
         extra = (None,) * (s.ndim - 1) if s.ndim else ()
         ke, ka, tau, oral, scale = (a[(Ellipsis,) + extra] if s.ndim else a for a in (ke, ka, tau, oral, scale))
@@ -215,10 +221,9 @@ class Regimen:
         dc = np.where(oral, scale * dc_or, dc_iv)
         return c, dc
 
-    def at(self, t, steady_state=False):
+    def at(self, t: npt.ArrayLike, steady_state: bool = False) -> FloatArray:
         """C at global times ``t`` (rows x times, or broadcastable), right-continuous at doses."""
-        t = np.asarray(t, dtype=float)
-        t2 = np.atleast_1d(t)
+        t2 = np.atleast_1d(np.asarray(t, dtype=float))
         if t2.ndim == 1:
             t2 = np.broadcast_to(t2, (self.ke.size, t2.size))
         out = np.zeros(t2.shape)
@@ -239,17 +244,17 @@ class Regimen:
         return out
 
 
-def _single_shape(t, ka, ke):
+def _single_shape(t: Any, ka: Any, ke: Any) -> FloatArray:
     """(e^-ke t - e^-ka t)/(ka - ke), stably (t e^-k t at ka = ke)."""
     k1 = np.minimum(ka, ke)
     d = np.abs(ka - ke)
     x = d * t
     with np.errstate(invalid="ignore", divide="ignore"):
         ratio = np.where(x > 0, -np.expm1(-x) / np.where(x > 0, d, 1.0), t)
-    return np.exp(-k1 * t) * ratio
+    return np.asarray(np.exp(-k1 * t) * ratio, dtype=np.float64)
 
 
-def _bateman_sum(s, ke, ka, tau, m, ge, s1e):
+def _bateman_sum(s: Any, ke: Any, ka: Any, tau: Any, m: float, ge: Any, s1e: Any) -> tuple[Any, Any]:
     """Superposed unit Bateman curves and their time derivative at s after dose m."""
     if m == 0:
         k1 = np.minimum(ka, ke)
@@ -282,7 +287,9 @@ def _bateman_sum(s, ke, ka, tau, m, ge, s1e):
     return c_dir, dc_dir
 
 
-def concentration(t, *, route, cmax, half_life, tmax=None, dosing_interval=None, n_doses=1, steady_state=False):
+def concentration(t: npt.ArrayLike, *, route: Any, cmax: npt.ArrayLike, half_life: npt.ArrayLike,
+                  tmax: npt.ArrayLike | None = None, dosing_interval: npt.ArrayLike | None = None, n_doses: int = 1,
+                  steady_state: bool = False) -> FloatArray:
     """Free concentration (M) at times ``t`` (s) for each compound.
 
     Scalars give a 1-d array over ``t``; arrays of compounds give
@@ -290,10 +297,10 @@ def concentration(t, *, route, cmax, half_life, tmax=None, dosing_interval=None,
     steady state (infinitely many doses) at ``t mod tau``.
     """
     reg = Regimen.build(route, cmax, half_life, tmax, dosing_interval, n_doses)
-    t = np.asarray(t, dtype=float)
-    c = reg.at(np.atleast_1d(t), steady_state=steady_state)
+    t_a = np.asarray(t, dtype=float)
+    c = reg.at(np.atleast_1d(t_a), steady_state=steady_state)
     scalar_params = all(np.ndim(a) == 0 for a in (route, cmax, half_life, tmax if tmax is not None else 0.0))
     if scalar_params:
         c = c[0]
-        return c.reshape(t.shape) if t.ndim else c[0]
+        return c.reshape(t_a.shape) if t_a.ndim else np.asarray(c[0], dtype=np.float64)
     return c
