@@ -65,6 +65,42 @@ ATOMS: dict[str, tuple[float, tuple[int, int]]] = {
 KON_WARN = 1e9  # /M/s: above practical ceilings for small molecules (from memory, see docs/REFERENCES.md)
 KON_MAX = 1e10  # /M/s: Smoluchowski diffusion limit, order 1e9-1e10 /M/s (from memory)
 
+YEAR_S = 365.25 * 86400.0
+#: Plausible range (SI, inclusive) of every quantity of a kind; values outside are refused as absurd magnitudes
+#: (a typo or a wrong unit), by kind, so every quantity column of the format is covered, new ones included.
+#: Concentrations above 1 M exceed the solubility of a drug-like compound and below 1e-18 M a well holds no
+#: molecule (common practice); times (incubations, half-lives, residence times, intervals) lie between 1 µs and
+#: one year, and first-order rates are their reciprocals; second-order rates lie between 1e-3 /M/s and the
+#: diffusion limit (KON_MAX).  Fractions keep their 0-1.5 check.
+BOUNDS: dict[str, tuple[float, float]] = {
+    "concentration": (1e-18, 1.0),
+    "time": (1e-6, YEAR_S),
+    "rate1": (1.0 / YEAR_S, 1e6),
+    "rate2": (1e-3, KON_MAX),
+    "fraction": (0.0, 1.5),
+}
+_BOUND_WORDS = {
+    "concentration": ("1e-18 M", "1 M"),
+    "time": ("1 µs", "one year"),
+    "rate1": ("1 per year", "1e6 /s"),
+    "rate2": ("1e-3 /M/s", "1e10 /M/s"),
+    "fraction": ("0", "1.5"),
+}
+
+
+def bound_message(raw: str, si: float, kind: str) -> str | None:
+    """Why ``si`` (the value of cell text ``raw``) is an absurd magnitude for ``kind``, or ``None`` when plausible.
+
+    Zero and negative values are left to the positivity checks.
+    """
+    low, high = BOUNDS[kind]
+    if si > high:
+        return f"{raw!r} is above the plausible maximum for {KIND_WORDS[kind]} ({_BOUND_WORDS[kind][1]}); check the value and unit"
+    if 0 < si < low:
+        return f"{raw!r} is below the plausible minimum for {KIND_WORDS[kind]} ({_BOUND_WORDS[kind][0]}); check the value and unit"
+    return None
+
+
 _NUMBER = re.compile(r"^\s*([+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?)\s*(.*?)\s*$")
 _MOL_PER_L = re.compile(r"\b([munpfµμ]?)mol\s*/\s*[lL]\b")
 _SUPERSCRIPT = str.maketrans({"⁻": "-", "¹": "1", "²": "2", "³": "3", "·": "*", "×": "*"})

@@ -18,7 +18,7 @@ import pandas as pd
 from ..errors import UnitError
 from ..fmt import rate2
 from ..units import _NUMBER as _NUMBER_RE  # the scalar parser's own pattern
-from ..units import KON_MAX, KON_WARN, unit_factor
+from ..units import BOUNDS, KON_MAX, KON_WARN, bound_message, unit_factor
 
 
 @dataclass
@@ -37,13 +37,16 @@ def parse_quantity_column(
     positive: bool = True,
     low: float | None = None,
     high: float | None = None,
+    bounded: bool = True,
 ) -> ColumnResult:
     """Parse a column of quantity text (``None``/NA = empty cell) of one ``kind``.
 
     ``positive`` refuses zero and negative values; ``low``/``high`` bound the SI
     value (inclusive).  Fractions must lie in 0-1.5 and second-order rates at or
     below the diffusion limit, as in :func:`tracker.units.parse_quantity`; a kon
-    above ~1e9 /M/s gives a warning.
+    above ~1e9 /M/s gives a warning.  ``bounded`` refuses absurd magnitudes of the
+    kind (:data:`tracker.units.BOUNDS`: a concentration above 1 M, a time above a
+    year, ...).
     """
     texts = texts.reset_index(drop=True)
     n = len(texts)
@@ -113,13 +116,17 @@ def parse_quantity_column(
         problem |= checked & (vals < low)
     if high is not None:
         problem |= checked & (vals > high)
+    if bounded:
+        b_low, b_high = BOUNDS[kind]
+        problem |= checked & ((vals > b_high) | ((vals > 0) & (vals < b_low)))
     for j in np.flatnonzero(problem):
         pos = int(ok_idx[j])
         raw = str(texts.iloc[pos]).strip()
         if not finite[j]:
             out.errors.append((pos, f"{raw!r} is not a finite number"))
         else:
-            out.errors.append((pos, _check_value(vals[j], kind, positive, low, high, raw)))
+            msg = _check_value(vals[j], kind, positive, low, high, raw)
+            out.errors.append((pos, msg if msg is not None else bound_message(raw, vals[j], kind) or f"{raw!r} is out of range"))
     keep = good_unit & ~problem
     si[ok_idx[keep]] = vals[keep]
     if kind == "rate2":

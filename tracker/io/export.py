@@ -1,124 +1,87 @@
-"""Export in the import format: one CSV per table and, optionally, one ``.xlsx`` with a sheet per table.
+"""Writing the exchange format: CSV files and an ``.xlsx`` workbook of text cells, safe to open in a spreadsheet.
 
-Quantities are written as the text they arrived with, so importing an export
-into an empty database and exporting again gives identical files.  A value
-stored without its text (e.g. a saved fit) is written in SI with its unit.
-All tables are read in one read transaction, so the files are consistent.
+Only writing lives here (no database): :mod:`tracker.services.exporting`
+collects the rows and calls :func:`write_csv` / :func:`write_xlsx`.
+
+Formula safety follows the OWASP "CSV Injection" guidance
+(https://owasp.org/www-community/attacks/CSV_Injection): a cell that starts
+with ``=``, ``+``, ``-``, ``@``, a tab or a carriage return and is not a plain
+number is written with a leading single quote, so a spreadsheet shows it as
+text instead of running it as a formula (``=HYPERLINK(...)``, ``+cmd|...``,
+``@SUM(...)``).  The workbook additionally stores every cell as a string
+cell (openpyxl ``data_type = "s"``), so it holds no formula cells at all.
+Imports refuse such cells (:func:`formula_like`), so data that came in
+through an import never needs the quote and round trips stay byte-identical.
 """
 
 from __future__ import annotations
 
 import csv
+import re
+from collections.abc import Iterable, Sequence
 from pathlib import Path
-from typing import Any
 
-from sqlalchemy import Engine, select
+#: First characters that make a spreadsheet read a cell as a formula (OWASP "CSV Injection").
+FORMULA_TRIGGERS = ("=", "+", "-", "@", "\t", "\r")
+_PLAIN_NUMBER = re.compile(r"^[+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?$")
 
-from ..db.models import Compound, KineticMeasurement, PKProfile, Potency, Program
-from ..db.uow import UnitOfWork
-from .specs import SPECS
-
+#: Unit text written after an SI value that has no text of its own (e.g. a value from a saved fit).
 SI_UNIT_TEXT = {"concentration": "M", "time": "s", "rate1": "/s", "rate2": "/M/s", "fraction": ""}
 
 
-def _text(text: str | None, si: float | None, kind: str) -> str | None:
-    if text is not None and text != "":
-        return text
-    if si is None:
-        return None
-    unit = SI_UNIT_TEXT[kind]
-    return f"{si!r} {unit}".strip()
+def formula_like(text: str | None) -> bool:
+    """True when a spreadsheet could run ``text`` as a formula: it starts with a trigger and is not a plain number."""
+    return bool(text) and text[0] in FORMULA_TRIGGERS and _PLAIN_NUMBER.match(text) is None  # type: ignore[index]
 
 
-def _quantity_cells(row: Any, spec_name: str, names: tuple[str, ...]) -> dict[str, str | None]:
-    spec = SPECS[spec_name]
-    out = {}
-    for n in names:
-        c = spec.col(n)
-        out[n] = _text(getattr(row, c.text_db), getattr(row, c.db), c.kind)
-    return out
+def neutralise(text: str | None) -> str | None:
+    """``text`` with a leading ``'`` when it is :func:`formula_like` (OWASP "CSV Injection"), else unchanged."""
+    return "'" + text if formula_like(text) else text  # type: ignore[operator]
 
 
-def collect_rows(session) -> dict[str, list[dict[str, str | None]]]:
-    """Every table of the format as rows of text cells, in insertion order."""
-    tables: dict[str, list[dict[str, str | None]]] = {}
-
-    rows = session.execute(select(Program).order_by(Program.id)).scalars()
-    tables["programs"] = [
-        {"program": p.name, "target": p.target, "intended_profile": p.intended_profile,
-         **_quantity_cells(p, "programs", ("engagement_threshold", "onset_max", "duration_min", "offset_max", "dosing_interval"))}
-        for p in rows
-    ]
-
-    q = select(Compound.name, Program.name.label("program"), Compound.series, Compound.stage, Compound.smiles).join(
-        Program, Program.id == Compound.program_id).order_by(Compound.id)
-    tables["compounds"] = [{"compound": r.name, "program": r.program, "series": r.series, "stage": r.stage, "smiles": r.smiles} for r in session.execute(q)]
-
-    q = select(Potency, Compound.name).join(Compound, Compound.id == Potency.compound_id).order_by(Potency.id)
-    tables["potency"] = [
-        {"compound": name, "assay": m.assay, "readout": m.readout,
-         **_quantity_cells(m, "potency", ("value", "incubation")), "format": m.format,
-         **_quantity_cells(m, "potency", ("tracer_conc", "tracer_kd", "tracer_residence_time", "max_response_fraction")),
-         "date": m.measured_on.isoformat() if m.measured_on else None, "source": m.source}
-        for m, name in session.execute(q)
-    ]
-
-    q = select(KineticMeasurement, Compound.name).join(Compound, Compound.id == KineticMeasurement.compound_id).order_by(KineticMeasurement.id)
-    kin = []
-    for m, name in session.execute(q):
-        as_rt = m.koff_given_as == "residence_time" and m.koff_text
-        kin.append(
-            {"compound": name, "method": m.method, "kon": _text(m.kon_text, m.kon_per_M_s, "rate2"),
-             "koff": None if as_rt else _text(m.koff_text, m.koff_per_s, "rate1"),
-             "residence_time": m.koff_text if as_rt else None,
-             **_quantity_cells(m, "kinetics", ("kd", "kon_low", "kon_high", "koff_low", "koff_high")),
-             "date": m.measured_on.isoformat() if m.measured_on else None, "source": m.source}
-        )
-    tables["kinetics"] = kin
-
-    q = select(PKProfile, Compound.name).join(Compound, Compound.id == PKProfile.compound_id).order_by(PKProfile.id)
-    tables["pk"] = [
-        {"compound": name, "species": m.species, "route": m.route,
-         **_quantity_cells(m, "pk", ("half_life", "free_cmax", "tmax", "dosing_interval")), "source": m.source}
-        for m, name in session.execute(q)
-    ]
-    return tables
+def si_text(si: float, kind: str) -> str:
+    """An SI value as text at full precision (``repr``: the shortest text that reads back as the same float)."""
+    return f"{float(si)!r} {SI_UNIT_TEXT[kind]}".strip()
 
 
-def export_tables(engine: Engine, out_dir: Path, xlsx: Path | None = None) -> dict[str, Any]:
-    """Write ``<table>.csv`` for every table to ``out_dir`` (and a workbook to ``xlsx``); returns counts and paths."""
-    with UnitOfWork(engine, write=False) as uow:
-        tables = collect_rows(uow.session)
-    out_dir.mkdir(parents=True, exist_ok=True)
-    summary: dict[str, Any] = {"dir": str(out_dir), "tables": {}}
-    for name, rows in tables.items():
-        cols = SPECS[name].names
-        path = out_dir / f"{name}.csv"
-        with path.open("w", encoding="utf-8", newline="") as fh:
-            w = csv.writer(fh, lineterminator="\n")
-            w.writerow(cols)
-            for r in rows:
-                w.writerow(["" if r.get(c) is None else r[c] for c in cols])
-        summary["tables"][name] = {"rows": len(rows), "file": str(path)}
-    if xlsx is not None:
-        write_xlsx(tables, xlsx)
-        summary["xlsx"] = str(xlsx)
-    return summary
+def _cells(row: dict[str, str | None], cols: Sequence[str]) -> list[str | None]:
+    return [neutralise(row.get(c)) for c in cols]
 
 
-def write_xlsx(tables: dict[str, list[dict[str, str | None]]], path: Path) -> None:
-    """One sheet per table, every cell as text (so units and digits survive)."""
+def write_csv(rows: Iterable[dict[str, str | None]], cols: Sequence[str], path: Path) -> int:
+    """Write a header and one line per row (cells neutralised); returns the number of rows."""
+    n = 0
+    with path.open("w", encoding="utf-8", newline="") as fh:
+        w = csv.writer(fh, lineterminator="\n")
+        w.writerow(cols)
+        for r in rows:
+            w.writerow(["" if v is None else v for v in _cells(r, cols)])
+            n += 1
+    return n
+
+
+def write_xlsx(tables: dict[str, list[dict[str, str | None]]], columns: dict[str, Sequence[str]], path: Path) -> None:
+    """One sheet per table; every cell is a string cell (no formulas), neutralised as in the CSV files."""
     from openpyxl import Workbook
+    from openpyxl.cell import WriteOnlyCell
 
     book = Workbook(write_only=True)
     for name, rows in tables.items():
         ws = book.create_sheet(name)
-        cols = SPECS[name].names
-        ws.append(list(cols))
+        cols = columns[name]
+
+        def text_cell(value: str | None, ws=ws) -> WriteOnlyCell | None:
+            if value is None:
+                return None
+            cell = WriteOnlyCell(ws, value=value)
+            cell.data_type = "s"  # openpyxl turns a string starting with "=" into a formula unless told otherwise
+            return cell
+
+        ws.append([text_cell(c) for c in cols])
         for r in rows:
-            ws.append([r.get(c) for c in cols])
+            ws.append([text_cell(v) for v in _cells(r, cols)])
     path.parent.mkdir(parents=True, exist_ok=True)
     book.save(path)
 
 
-__all__ = ["export_tables", "collect_rows", "write_xlsx"]
+__all__ = ["FORMULA_TRIGGERS", "SI_UNIT_TEXT", "formula_like", "neutralise", "si_text", "write_csv", "write_xlsx"]

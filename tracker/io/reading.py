@@ -197,7 +197,7 @@ def read_xlsx(path: Path, only_table: str | None = None, label: str | None = Non
 
     label = label or str(path)
     try:
-        book = load_workbook(path, read_only=True, data_only=True)
+        book = load_workbook(path, read_only=True, data_only=False)  # formula cells arrive as formulas and are refused
     except Exception as exc:  # openpyxl raises many types for a damaged or foreign file
         return [_broken(path, label, only_table, f"not a readable .xlsx workbook ({type(exc).__name__}: {exc})")]
     try:
@@ -267,6 +267,9 @@ def _cell_text(raw: RawTable, cell, line: int, column: str) -> str | None:
     if v is None:
         return None
     kind = getattr(cell, "data_type", None)
+    if kind == "f" or (isinstance(v, str) and kind != "s" and v.startswith("=")):
+        raw.errors.append(raw.error(line, column, "a formula cell; paste the values as text (formulas are not imported)"))
+        return None
     if kind == "e":
         raw.errors.append(raw.error(line, column, f"Excel error value {v!s} in the cell"))
         return None

@@ -21,6 +21,8 @@ import pandas as pd
 from ..domain import canonical
 from ..errors import InputError
 from .columns import parse_quantity_column
+from .export import FORMULA_TRIGGERS, formula_like
+from .names import name_key
 from .reading import RawTable
 from .specs import ORDER, SPECS, TableSpec
 
@@ -136,6 +138,13 @@ def _validate_rows(df: pd.DataFrame, spec: TableSpec) -> tuple[pd.DataFrame, lis
         if joined is None or "\x00" in joined:
             nul = series.map(lambda v: isinstance(v, str) and "\x00" in v).to_numpy(dtype=bool)
             flag(np.flatnonzero(nul), col.name, "NUL character (byte 0x00) in the cell; remove it")
+        # formula-like cells (OWASP "CSV Injection"): one C-speed scan of the column, cell by cell only on a hit
+        starts = None if joined is None else "\x1f" + "\x1f".join(texts)
+        if starts is None or any("\x1f" + ch in starts for ch in FORMULA_TRIGGERS):
+            formula = series.map(lambda v: isinstance(v, str) and formula_like(v)).to_numpy(dtype=bool)
+            flag(np.flatnonzero(formula), col.name,
+                 lambda p, s=series: f"{s.iloc[p][:40]!r} starts with {s.iloc[p][0]!r}, which a spreadsheet runs as a formula; "
+                                     "remove the leading character")
         if col.required:
             flag(np.flatnonzero(missing), col.name, "missing value (required)")
         if col.kind in ("text", "ref"):
@@ -223,6 +232,7 @@ def _entity_duplicates(df: pd.DataFrame, spec: TableSpec, flag) -> None:
     key = spec.key
     cols = [c.name for c in spec.columns]
     present = df[key].notna()
+    _near_duplicates(df, key, flag)
     dup = df[present & df.duplicated(subset=[key], keep=False)]
     if dup.empty:
         return
@@ -232,6 +242,28 @@ def _entity_duplicates(df: pd.DataFrame, spec: TableSpec, flag) -> None:
         for pos in group.index[1:]:
             if tuple(group.loc[pos, cols]) != base:
                 flag([pos], key, f"{key} {df.at[pos, key]!r} is also on {group.at[first, '_label']} line {group.at[first, '_line']} with different values")
+
+
+def _near_duplicates(df: pd.DataFrame, key: str, flag) -> None:
+    """Flag names that equal an earlier, differently spelled name of the import after :func:`name_key`."""
+    codes, uniques = pd.factorize(df[key].to_numpy(dtype=object))
+    if len(uniques) < 2:
+        return
+    keys = [name_key(u) if isinstance(u, str) else u for u in uniques.tolist()]
+    if len(set(keys)) == len(keys):
+        return
+    first_pos = pd.Series(np.arange(len(df))).groupby(codes).min()  # first row of every distinct spelling
+    spelled: dict[str, int] = {}  # key -> code of its first spelling (by row order)
+    for code in sorted(range(len(uniques)), key=lambda c: first_pos[c]):
+        k = keys[code]
+        if k not in spelled:
+            spelled[k] = code
+            continue
+        first = int(first_pos[spelled[k]])
+        other = uniques[spelled[k]]
+        flag(np.flatnonzero(codes == code), key,
+             f"{key} {uniques[code]!r} differs from {other!r} ({df.at[first, '_label']} line {df.at[first, '_line']}) "
+             "only by case or look-alike characters; use one spelling")
 
 
 def content_hashes(df: pd.DataFrame, spec: TableSpec) -> list[str]:

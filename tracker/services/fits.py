@@ -149,19 +149,20 @@ def save_fit(
             km_id = None
             if koff is not None and method not in QUALITATIVE:
                 kon = _finite(keys.get("kon_per_M_per_s"))
+                kd = _finite(keys.get("kd_M"))  # texts at full precision (repr), so an export reads back the same float
                 kon_lo, kon_hi = _pair(keys.get("kon_ci95_per_M_per_s"))
                 koff_lo, koff_hi = _pair(keys.get("koff_ci95_per_s"))
                 row = dict(
                     compound_id=cid, method=STORED_METHOD[method],
-                    kon_per_M_s=kon, kon_text=None if kon is None else f"{kon:.6g} /M/s",
-                    koff_per_s=koff, koff_text=f"{koff:.6g} /s", koff_given_as="koff",
-                    kd_M=_finite(keys.get("kd_M")), kd_text=None if keys.get("kd_M") is None else f"{keys['kd_M']:.6g} M",
+                    kon_per_M_s=kon, kon_text=None if kon is None else f"{kon!r} /M/s",
+                    koff_per_s=koff, koff_text=f"{koff!r} /s", koff_given_as="koff",
+                    kd_M=kd, kd_text=None if kd is None else f"{kd!r} M",
                     kon_low_per_M_s=kon_lo, kon_high_per_M_s=kon_hi,
                     koff_low_per_s=koff_lo, koff_high_per_s=koff_hi,
-                    kon_low_text=None if kon_lo is None else f"{kon_lo:.6g} /M/s",
-                    kon_high_text=None if kon_hi is None else f"{kon_hi:.6g} /M/s",
-                    koff_low_text=None if koff_lo is None else f"{koff_lo:.6g} /s",
-                    koff_high_text=None if koff_hi is None else f"{koff_hi:.6g} /s",
+                    kon_low_text=None if kon_lo is None else f"{kon_lo!r} /M/s",
+                    kon_high_text=None if kon_hi is None else f"{kon_hi!r} /M/s",
+                    koff_low_text=None if koff_lo is None else f"{koff_lo!r} /s",
+                    koff_high_text=None if koff_hi is None else f"{koff_hi!r} /s",
                     fit_json=json.dumps(fit_dict, allow_nan=False, default=str), time_course_id=tc_id,
                     source=meta["source"], content_hash=digest,
                 )

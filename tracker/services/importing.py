@@ -49,6 +49,7 @@ from ..db.session import with_retry
 from ..db.uow import UnitOfWork
 from ..errors import ImportErrors, InputError, PermissionDenied
 from ..errors import IntegrityError as KrtIntegrityError
+from ..io.names import name_key
 from ..io.reading import gather
 from ..io.specs import COMPOUNDS, PROGRAMS, SPECS
 from ..io.validate import Validated, validate_tables
@@ -330,7 +331,30 @@ def _resolve(session: Session, v: Validated, keep_existing: bool = False) -> tup
     )
     if not keep_existing:  # otherwise stored compounds keep their stage and program
         errors += _change_errors(compounds_df.drop_duplicates(subset=["compound"]), compound_rows, program_names)
+    errors += _near_duplicate_errors(programs_df, "program", stored_programs["name"])
+    errors += _near_duplicate_errors(compounds_df, "compound", stored_compounds["name"])
     return _Snapshot(stored_programs, stored_compounds), errors
+
+
+def _near_duplicate_errors(df: pd.DataFrame, key: str, stored: pd.Series) -> list[InputError]:
+    """New names that a stored name spells differently only by case or look-alike characters (:func:`name_key`)."""
+    if df.empty or stored.empty:
+        return []
+    names = df[key]
+    new = df[names.notna() & ~names.isin(set(stored))]
+    if new.empty:
+        return []
+    stored_by_key: dict[str, str] = {}
+    for name in stored.tolist():
+        stored_by_key.setdefault(name_key(name), name)
+    errors = []
+    codes, uniques = pd.factorize(new[key].to_numpy(dtype=object))
+    hit = np.array([stored_by_key.get(name_key(u)) for u in uniques.tolist()] + [None], dtype=object)[codes]
+    for (label, line, value), other in zip(new[["_label", "_line", key]].itertuples(index=False, name=None), hit):
+        if other is not None:
+            errors.append(InputError(f"{key} {value!r} differs from the stored {key} {other!r} only by case or look-alike "
+                                     "characters; use the stored spelling", file=label, line=int(line), column=key))
+    return errors
 
 
 def _program_db_cols() -> list[str]:
@@ -465,10 +489,10 @@ def _update_compounds(session, df, stored, actor, reason, events) -> int:
 
 # ------------------------------------------------------------------ export
 def export_all(engine: Engine, out_dir: str | Path, xlsx: str | Path | None = None) -> dict[str, Any]:
-    """Write every table of the format to ``out_dir`` (CSV) and optionally one ``.xlsx`` workbook."""
-    from ..io.export import export_tables
+    """Write every table of the format to ``out_dir`` (CSV) and optionally one ``.xlsx`` workbook (see :mod:`.exporting`)."""
+    from .exporting import export_tables
 
-    return export_tables(engine, Path(out_dir), Path(xlsx) if xlsx else None)
+    return export_tables(engine, out_dir, xlsx)
 
 
 __all__ = ["import_path", "export_all", "Progress", "PROGRESS_THRESHOLD"]
