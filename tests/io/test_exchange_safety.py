@@ -45,7 +45,7 @@ def _messages(info) -> list[str]:
 def test_neutralise_quotes_formula_triggers_but_leaves_numbers_and_plain_text():
     for text in HOSTILE + ["\tx", "\r=1"]:
         assert formula_like(text) and neutralise(text) == "'" + text
-    for text in ["-1", "+2.5", "-1e-3", ".5", "AUR-001", "3.2 nM", "", None, "a=b"]:
+    for text in ["-1", "+2.5", "-1e-3", ".5", "AGR-001", "3.2 nM", "", None, "a=b"]:
         assert not formula_like(text) and neutralise(text) == text
 
 
@@ -92,7 +92,7 @@ def test_full_precision_values_round_trip_byte_identically(migrated_engine, seco
     import_path(migrated_engine, sample_dir, actor="ana")
     kon, koff, kd = 1234567.8912345678, 1.2345678901234567e-05, 9.876543210987654e-09
     with UnitOfWork(migrated_engine) as uow:
-        cid = uow.session.execute(select(Compound.id).where(Compound.name == "BOR-001")).scalar_one()
+        cid = uow.session.execute(select(Compound.id).where(Compound.name == "BKF-001")).scalar_one()
         uow.session.execute(insert(KineticMeasurement), [{
             "compound_id": cid, "method": "competition-kinetics", "kon_per_M_s": kon, "kon_text": f"{kon:.6g} /M/s",
             "koff_per_s": koff, "koff_text": f"{koff:.6g} /s", "kd_M": kd, "kd_text": f"{kd:.6g} M",
@@ -100,14 +100,14 @@ def test_full_precision_values_round_trip_byte_identically(migrated_engine, seco
         }])
         uow.commit()
     export_all(migrated_engine, tmp_path / "one")
-    line = [ln for ln in (tmp_path / "one" / "kinetics.csv").read_text().splitlines() if ln.startswith("BOR-001")][0]
+    line = [ln for ln in (tmp_path / "one" / "kinetics.csv").read_text().splitlines() if ln.startswith("BKF-001")][0]
     assert f"{kon!r} /M/s" in line and f"{koff!r} /s" in line and f"{kd!r} M" in line  # not the 6-digit texts
     import_path(second_migrated_engine, tmp_path / "one", actor="ana")
     export_all(second_migrated_engine, tmp_path / "two")
     names = sorted(p.name for p in (tmp_path / "one").iterdir())
     assert filecmp.cmpfiles(tmp_path / "one", tmp_path / "two", names, shallow=False)[1:] == ([], [])
     got = queries.kinetics(second_migrated_engine)
-    row = got[got["compound"] == "BOR-001"].iloc[0]
+    row = got[got["compound"] == "BKF-001"].iloc[0]
     assert (row["kon_per_M_s"], row["koff_per_s"], row["kd_M"]) == (kon, koff, kd)  # exactly equal, not approx
 
 
@@ -133,11 +133,11 @@ def test_formula_like_cells_are_refused_with_a_located_error(loaded, tmp_path, d
     folder = tmp_path / "bad"
     folder.mkdir()
     (folder / "compounds.csv").write_text("compound,program,series,stage,smiles\n"
-                                          "NEW-1,Aurora,S1,hit,\n"
-                                          "\"=HYPERLINK(\"\"http://evil\"\")\",Aurora,S1,hit,\n"
-                                          "NEW-3,Aurora,@SUM(1),hit,\n", encoding="utf-8")
-    (folder / "potency.csv").write_text(POT_HEAD + "AUR-001,a,IC50,5 nM,1 h,binding,+cmd|x\n"
-                                        "AUR-001,-a,IC50,+5 nM,1 h,binding,\n", encoding="utf-8")
+                                          "NEW-1,Ashgrove,S1,hit,\n"
+                                          "\"=HYPERLINK(\"\"http://evil\"\")\",Ashgrove,S1,hit,\n"
+                                          "NEW-3,Ashgrove,@SUM(1),hit,\n", encoding="utf-8")
+    (folder / "potency.csv").write_text(POT_HEAD + "AGR-001,a,IC50,5 nM,1 h,binding,+cmd|x\n"
+                                        "AGR-001,-a,IC50,+5 nM,1 h,binding,\n", encoding="utf-8")
     msgs = _refused(loaded, folder, db_snapshot)
     for where in ("compounds.csv:3: compound: '=HYPERLINK", "compounds.csv:4: series: '@SUM(1)' starts with '@'",
                   "potency.csv:2: source: '+cmd|x' starts with '+'", "potency.csv:3: assay: '-a'", "potency.csv:3: value: '+5 nM'"):
@@ -150,17 +150,17 @@ def test_a_formula_cell_in_a_workbook_is_refused(loaded, tmp_path, db_snapshot):
     ws = book.active
     ws.title = "potency"
     ws.append(["compound", "assay", "readout", "value", "incubation", "format"])
-    ws.append(["AUR-001", "a", "IC50", "5 nM", "1 h", "binding"])
-    ws.append(["AUR-001", "=CONCATENATE(\"a\",\"b\")", "IC50", "5 nM", "1 h", "binding"])
+    ws.append(["AGR-001", "a", "IC50", "5 nM", "1 h", "binding"])
+    ws.append(["AGR-001", "=CONCATENATE(\"a\",\"b\")", "IC50", "5 nM", "1 h", "binding"])
     book.save(tmp_path / "book.xlsx")
     msgs = _refused(loaded, tmp_path / "book.xlsx", db_snapshot)
     assert any(m.startswith("book.xlsx[potency]:3: assay: a formula cell") for m in msgs), msgs
 
 
 ABSURD = {
-    "concentration above 1 M": ("AUR-001,a,IC50,2 M,1 h,binding,\n", "potency.csv:2: value: '2 M' is above the plausible maximum"),
-    "incubation above a year": ("AUR-001,a,IC50,5 nM,400 days,binding,\n", "potency.csv:2: incubation: '400 days' is above the plausible maximum"),
-    "concentration below 1e-18 M": ("AUR-001,a,IC50,1e-6 fM,1 h,binding,\n", "potency.csv:2: value: '1e-6 fM' is below the plausible minimum"),
+    "concentration above 1 M": ("AGR-001,a,IC50,2 M,1 h,binding,\n", "potency.csv:2: value: '2 M' is above the plausible maximum"),
+    "incubation above a year": ("AGR-001,a,IC50,5 nM,400 days,binding,\n", "potency.csv:2: incubation: '400 days' is above the plausible maximum"),
+    "concentration below 1e-18 M": ("AGR-001,a,IC50,1e-6 fM,1 h,binding,\n", "potency.csv:2: value: '1e-6 fM' is below the plausible minimum"),
 }
 
 
@@ -225,7 +225,7 @@ CPD_HEAD = "compound,program,series,stage,smiles\n"
 def test_near_duplicate_compound_names_within_one_file_are_refused(loaded, tmp_path, db_snapshot, spelling):
     folder = tmp_path / "bad"
     folder.mkdir()
-    (folder / "compounds.csv").write_text(CPD_HEAD + "AUR-100,Aurora,S1,hit,\n" + f"{spelling},Aurora,S1,hit,\n", encoding="utf-8")
+    (folder / "compounds.csv").write_text(CPD_HEAD + "AUR-100,Ashgrove,S1,hit,\n" + f"{spelling},Ashgrove,S1,hit,\n", encoding="utf-8")
     msgs = _refused(loaded, folder, db_snapshot)
     assert msgs == [f"compounds.csv:3: compound: compound {spelling!r} differs from 'AUR-100' (" + str(folder / "compounds.csv")
                     + " line 2) only by case or look-alike characters; use one spelling"]
@@ -234,8 +234,8 @@ def test_near_duplicate_compound_names_within_one_file_are_refused(loaded, tmp_p
 def test_a_new_name_that_a_stored_name_spells_differently_is_refused(loaded, tmp_path, db_snapshot):
     folder = tmp_path / "bad"
     folder.mkdir()
-    (folder / "compounds.csv").write_text(CPD_HEAD + "NEW-1,Aurora,S1,hit,\nａｕｒ-００１,Aurora,S1,hit,\n", encoding="utf-8")
-    (folder / "programs.csv").write_text("program\nAURORA\n", encoding="utf-8")
+    (folder / "compounds.csv").write_text(CPD_HEAD + "NEW-1,Ashgrove,S1,hit,\nａｇｒ-００１,Ashgrove,S1,hit,\n", encoding="utf-8")
+    (folder / "programs.csv").write_text("program\nASHGROVE\n", encoding="utf-8")
     msgs = _refused(loaded, folder, db_snapshot)
-    assert "compounds.csv:3: compound: compound 'ａｕｒ-００１' differs from the stored compound 'AUR-001' only by case or look-alike characters; use the stored spelling" in msgs
-    assert any(m.startswith("programs.csv:2: program: program 'AURORA' differs from the stored program 'Aurora'") for m in msgs), msgs
+    assert "compounds.csv:3: compound: compound 'ａｇｒ-００１' differs from the stored compound 'AGR-001' only by case or look-alike characters; use the stored spelling" in msgs
+    assert any(m.startswith("programs.csv:2: program: program 'ASHGROVE' differs from the stored program 'Ashgrove'") for m in msgs), msgs
