@@ -49,6 +49,8 @@ def load_runner(folder: Path):
     if loaded is not None and Path(getattr(loaded, "__file__", "")).resolve() == path.resolve():
         return loaded
     spec = importlib.util.spec_from_file_location(MODULE, path)
+    if spec is None or spec.loader is None:
+        raise KrtError(f"cannot load the benchmarks from {path}")
     module = importlib.util.module_from_spec(spec)
     sys.modules[spec.name] = module  # dataclasses look their module up while the file runs
     try:

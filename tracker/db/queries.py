@@ -47,8 +47,8 @@ def _frame(bind: Bind, stmt: Select) -> pd.DataFrame:
             result = conn.execute(stmt)
             rows, keys = result.all(), list(result.keys())
     else:
-        result = bind.execute(stmt)
-        rows, keys = result.all(), list(result.keys())
+        result2 = bind.execute(stmt)
+        rows, keys = result2.all(), list(result2.keys())
     df = pd.DataFrame.from_records(rows, columns=keys)
     for col in stmt.selected_columns:
         name = col.key if hasattr(col, "key") else col.name

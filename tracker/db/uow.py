@@ -13,7 +13,7 @@ CLI and the dashboard stay thin.
 
 from __future__ import annotations
 
-from sqlalchemy import Engine
+from sqlalchemy import Connection, Engine
 from sqlalchemy.orm import Session
 
 from .session import WRITE_OPTION
@@ -25,12 +25,19 @@ class UnitOfWork:
     def __init__(self, engine: Engine, write: bool = True):
         self.engine = engine
         self.write = write
-        self.session: Session | None = None
+        self._session: Session | None = None
         self.committed = False
+
+    @property
+    def session(self) -> Session:
+        """The open session (only inside ``with``)."""
+        if self._session is None:
+            raise RuntimeError("the unit of work is not open: use it in a with statement")
+        return self._session
 
     def __enter__(self) -> UnitOfWork:
         bind = self.engine.execution_options(**{WRITE_OPTION: self.write})
-        self.session = Session(bind=bind, expire_on_commit=False, autoflush=False)
+        self._session = Session(bind=bind, expire_on_commit=False, autoflush=False)
         self.session.begin()
         self.session.connection()  # start the transaction now (BEGIN IMMEDIATE for writers)
         self.committed = False
@@ -45,16 +52,16 @@ class UnitOfWork:
     def rollback(self) -> None:
         self.session.rollback()
 
-    def __exit__(self, exc_type, exc, tb) -> None:
+    def __exit__(self, exc_type: object, exc: object, tb: object) -> None:
         try:
             if not self.committed:
                 self.session.rollback()
         finally:
             self.session.close()
-            self.session = None
+            self._session = None
 
     @property
-    def connection(self):
+    def connection(self) -> Connection:
         return self.session.connection()
 
     @property

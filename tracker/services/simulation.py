@@ -13,11 +13,13 @@ from typing import Any
 __all__ = ["rate_constants", "assay_readout", "engagement_metrics", "residence_time_bounds"]
 
 
-def rate_constants(**values: float | None) -> tuple[float, float, float]:
+def rate_constants(kd: float | None = None, kon: float | None = None, koff: float | None = None,
+                   residence_time: float | None = None) -> tuple[float, float, float]:
     """(KD, kon, koff) from any two of KD, kon, koff and residence time (consistency checked)."""
     from ..kinetics.equations import rate_constants as _rate_constants
 
-    return _rate_constants(**values)
+    kd_, kon_, koff_ = _rate_constants(kd=kd, kon=kon, koff=koff, residence_time=residence_time)
+    return float(kd_), float(kon_), float(koff_)
 
 
 def assay_readout(kd: float, koff: float, kon: float, incubation: float, *, fmt: str, preincubation: float,

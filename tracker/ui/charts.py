@@ -26,7 +26,11 @@ H = 3600.0
 CURVE_PALETTE = ("#3C6E71", "#B5432A", "#4F7CA8", "#C99A2E", "#7A5C99", "#5E8C61", "#8C6D46", "#A03C78")
 
 
-def _base(chart: alt.Chart, height: int = 320, legend: str = "right") -> alt.Chart:
+#: What the chart builders return: a single chart, a layer of charts or a faceted chart.
+ChartLike = alt.Chart | alt.LayerChart | alt.FacetChart
+
+
+def _base(chart: ChartLike, height: int = 320, legend: str = "right") -> ChartLike:
     return chart.properties(height=height).configure_axis(
         labelFont=theme.FONT, titleFont=theme.FONT, labelColor=theme.INK, titleColor=theme.INK, gridColor="#ECECEC",
     ).configure_legend(labelFont=theme.FONT, titleFont=theme.FONT, orient=legend, labelLimit=320).configure_view(strokeWidth=0)
@@ -37,7 +41,7 @@ def grade_colour_scale() -> alt.Scale:
 
 
 # ------------------------------------------------------------------ portfolio
-def grade_counts_chart(df: pd.DataFrame) -> alt.Chart:
+def grade_counts_chart(df: pd.DataFrame) -> ChartLike:
     """Stacked counts of grades by stage, one panel per program.
 
     ``df`` columns: ``program``, ``stage``, ``grade_label``, ``n``.
@@ -95,16 +99,17 @@ def fit_frames(fit: dict, data: pd.DataFrame, n: int = 200) -> tuple[pd.DataFram
     point_curve = _assign_curves(data, model, labels)
     points = pd.DataFrame({"x": x_si / scale, "y": data["signal"].to_numpy(float), "curve": point_curve})
     frames = []
-    for i, label in enumerate(labels):
-        lo_x, hi_x = model.x_range.get(label, (float(np.nanmin(x_si)), float(np.nanmax(x_si))))
-        if is_conc:
-            lo_x = max(lo_x, float(np.nanmin(x_si[x_si > 0])) if np.any(x_si > 0) else 1e-12)
-            xs = np.geomspace(lo_x, max(hi_x, lo_x * 10), n)
-        else:
-            xs = np.linspace(min(lo_x, 0.0), hi_x, n)
-        y = model.predict(xs, label)
-        lo, hi = model.band(xs, label)
-        frames.append(pd.DataFrame({"x": xs / scale, "y": y, "lo": lo, "hi": hi, "curve": label}))
+    if model is not None:
+        for i, label in enumerate(labels):
+            lo_x, hi_x = model.x_range.get(label, (float(np.nanmin(x_si)), float(np.nanmax(x_si))))
+            if is_conc:
+                lo_x = max(lo_x, float(np.nanmin(x_si[x_si > 0])) if np.any(x_si > 0) else 1e-12)
+                xs = np.geomspace(lo_x, max(hi_x, lo_x * 10), n)
+            else:
+                xs = np.linspace(min(lo_x, 0.0), hi_x, n)
+            y = model.predict(xs, label)
+            lo, hi = model.band(xs, label)
+            frames.append(pd.DataFrame({"x": xs / scale, "y": y, "lo": lo, "hi": hi, "curve": label}))
     curves = pd.concat(frames, ignore_index=True) if frames else pd.DataFrame(columns=["x", "y", "lo", "hi", "curve"])
     if is_conc:
         points = points[points["x"] > 0]
@@ -132,7 +137,7 @@ def _assign_curves(data: pd.DataFrame, model, labels: list[str]) -> list[str]:
     return [labels[0]] * n
 
 
-def fit_chart(points: pd.DataFrame, curves: pd.DataFrame, x_title: str, x_kind: str, y_title: str = "Signal (assay units)") -> alt.Chart:
+def fit_chart(points: pd.DataFrame, curves: pd.DataFrame, x_title: str, x_kind: str, y_title: str = "Signal (assay units)") -> ChartLike:
     """Data points, the fitted curve and its 95% confidence band, one colour per curve."""
     xscale = alt.Scale(type="log") if x_kind == "conc" else alt.Scale(zero=False)
     labels = list(dict.fromkeys(list(curves["curve"]) + list(points["curve"])))
@@ -183,7 +188,7 @@ def apparent_affinity_frame(kd_M: float, koff: float, t_s: np.ndarray, **competi
 
 
 def apparent_affinity_chart(curve: pd.DataFrame, measured: pd.DataFrame, *, rt_h: float | None, kd_nM: float | None,
-                            model_label: str = "predicted (saturation model)") -> alt.Chart:
+                            model_label: str = "predicted (saturation model)") -> ChartLike:
     """Apparent affinity against incubation on log-log axes.
 
     ``curve``: ``incubation_h, apparent_nM, fold`` (may be empty when RT is
@@ -254,7 +259,7 @@ def engagement_frame(ts: dict) -> pd.DataFrame:
 
 
 def engagement_chart(frame: pd.DataFrame, *, threshold: float | None, onset_max_h: float | None = None,
-                     offset_max_h: float | None = None, duration_min_h: float | None = None) -> alt.Chart:
+                     offset_max_h: float | None = None, duration_min_h: float | None = None) -> ChartLike:
     """Target engagement against time: kinetic and rapid-equilibrium curves, threshold, program windows.
 
     The onset limit is shaded from 0 to ``onset_max_h`` (engagement should
@@ -309,7 +314,7 @@ SERIES_SHAPES = ("circle", "square", "triangle-up", "diamond", "cross", "triangl
 
 
 def kinetic_map_chart(points: pd.DataFrame, *, floor_kd_M: float | None = None, floor_label: str = "",
-                      incubation_s: float | None = None, labels: bool = False) -> alt.Chart:
+                      incubation_s: float | None = None, labels: bool = False) -> ChartLike:
     """log kon against log koff, with iso-affinity diagonals and iso-residence-time lines.
 
     ``points``: ``compound, series, stage, grade_label, kon, koff, rt_text, kd_nM``
