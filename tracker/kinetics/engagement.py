@@ -77,7 +77,7 @@ from .assay import find_root
 from .equations import LN2
 from .pk import Regimen
 
-__all__ = ["EngagementMetrics", "engagement_metrics", "engagement_timeseries", "DEFAULT_STEPS"]
+__all__ = ["EngagementMetrics", "engagement_metrics", "engagement_timeseries", "turnover_rates", "DEFAULT_STEPS"]
 
 DEFAULT_STEPS = (320, 160)  # steps in the last (or only) interval, in each earlier dosing interval
 
@@ -191,8 +191,8 @@ def _local_grid(params, length, n_steps, n_pilot=None):
     return nodes
 
 
-def _tail_length(reg, kon, koff, thr, cpeak):
-    """Local time after the last dose beyond which C no longer matters."""
+def _tail_length(reg, kon, koff, thr, cpeak, m_last=None):
+    """Local time after the last dose (``m_last``; default the regimen's last) beyond which C no longer matters."""
     kd = koff / kon
     c_thr = kd * thr / (1.0 - thr)
     k_term = np.where(reg.oral, np.minimum(reg.ka, reg.ke), reg.ke)
@@ -200,7 +200,8 @@ def _tail_length(reg, kon, koff, thr, cpeak):
     need = np.maximum(kon * cpeak / (k_term * _TAIL_EXPOSURE), 1e3 * cpeak / c_thr)
     length = t_pk + 1.15 * (np.log(np.maximum(need, math.e)) + 2.0) / k_term
     # verify: kon * C / (local decay rate) <= budget and C << C_threshold; extend otherwise
-    m_last = reg.n_doses - 1
+    if m_last is None:
+        m_last = reg.n_doses - 1
     for _ in range(40):
         c, dc = reg.local(m_last, length)
         rate = np.maximum(-dc / np.where(c > 0, c, 1.0), 1e-300)
@@ -230,13 +231,21 @@ class _Run:
     clock: np.ndarray  # (n,) integral of (kon C + koff) over the whole run
 
 
-def _solve(reg, kon, koff, thr, steps, *, steady_state=False, theta_start=None):
-    """Integrate theta over the regimen (or one steady-state interval) for all rows of ``reg``."""
+def _solve(reg, kon, koff, thr, steps, *, steady_state=False, theta_start=None, washout=False):
+    """Integrate theta over the regimen (or one steady-state interval) for all rows of ``reg``.
+
+    ``washout=True``: the time after the last dose of a regimen at steady
+    state (concentration of infinitely many earlier doses, no further dose),
+    from ``theta_start`` to where C no longer matters.
+    """
     n = kon.size
     kd = koff / kon
     n_last, n_int = steps
     params = _grid_params(reg, kon, koff, thr)
-    if steady_state:
+    if washout:
+        cpeak = _single_peak(reg) * _accumulation(reg)
+        intervals = [(np.inf, _tail_length(reg, kon, koff, thr, cpeak, m_last=np.inf), n_last)]
+    elif steady_state:
         intervals = [(np.inf, reg.tau, n_last)]
     else:
         intervals = [(j, reg.tau, n_int) for j in range(reg.n_doses - 1)]
@@ -268,7 +277,7 @@ def _solve(reg, kon, koff, thr, steps, *, steady_state=False, theta_start=None):
             th_t[i + 1] += b_t[i]
         th = th_t.T
         theta0 = th[:, -1]
-        base = 0.0 if steady_state else (np.where(np.isfinite(reg.tau), reg.tau, 0.0) * j)
+        base = 0.0 if (steady_state or washout) else (np.where(np.isfinite(reg.tau), reg.tau, 0.0) * j)
         tg = sn + (base[:, None] if np.ndim(base) else base)
         if j > 0:  # boundary pseudo-step joining the previous interval's end to this start
             t_parts.append(tg[:, :1])
@@ -292,14 +301,22 @@ def _solve(reg, kon, koff, thr, steps, *, steady_state=False, theta_start=None):
     )
 
 
+def _single_peak(reg):
+    return np.where(reg.oral, _single_cmax(reg), reg.scale)
+
+
+def _accumulation(reg):
+    """Steady-state accumulation bound 1/(1 - e^-k tau) with the slower PK rate (1 without an interval)."""
+    tau = np.where(np.isfinite(reg.tau), reg.tau, np.inf)
+    return 1.0 / -np.expm1(-np.minimum(reg.ke, np.where(reg.oral, reg.ka, reg.ke)) * tau)
+
+
 def _peak_conc_estimate(reg):
     """Upper estimate of the highest concentration over the regimen."""
     if reg.n_doses == 1 or not np.all(np.isfinite(reg.tau)):
-        c1 = np.where(reg.oral, _single_cmax(reg), reg.scale)
-        return c1
+        return _single_peak(reg)
     # steady-state accumulation bounds every dose's peak
-    acc = 1.0 / -np.expm1(-np.minimum(reg.ke, np.where(reg.oral, reg.ka, reg.ke)) * reg.tau)
-    return np.where(reg.oral, _single_cmax(reg), reg.scale) * acc
+    return _single_peak(reg) * _accumulation(reg)
 
 
 def _single_cmax(reg):
@@ -459,6 +476,25 @@ def _theta_level_metrics(run: _Run, level):
     return first, last, dur
 
 
+def _time_above(run: _Run, level):
+    """Time above ``level`` within the run's grid (no tail); the run may start above the level."""
+    n = run.kon.size
+    up, down = _crossings(run.theta, level)
+    pseudo = run.m < 0
+    up[:, pseudo] = False
+    down[:, pseudo] = False
+    r_up, s_up = np.nonzero(up)
+    r_dn, s_dn = np.nonzero(down)
+    dur = np.zeros(n)
+    if r_up.size:
+        np.add.at(dur, r_up, -_refine_level(run, r_up, s_up, level[r_up]))
+    if r_dn.size:
+        np.add.at(dur, r_dn, _refine_level(run, r_dn, s_dn, level[r_dn]))
+    dur -= np.where(run.theta[:, 0] >= level, run.t[:, 0], 0.0)
+    dur += np.where(run.theta[:, -1] >= level, run.t_end, 0.0)
+    return dur
+
+
 def _rapid_metrics(run: _Run, thr):
     """onset/offset of theta_rapid = C/(C+KD) against thr; jumps at iv doses handled."""
     n = run.kon.size
@@ -579,6 +615,9 @@ class EngagementMetrics:
     rapid_onset_s: np.ndarray
     rapid_offset_s: np.ndarray
     rapid_peak_occupancy: np.ndarray
+    steady_peak_occupancy: np.ndarray
+    steady_time_above_s: np.ndarray
+    steady_offset_s: np.ndarray
 
     def __getitem__(self, name: str) -> np.ndarray:
         if name not in self.keys():
@@ -633,6 +672,8 @@ def engagement_metrics(
     *,
     steps=DEFAULT_STEPS,
     metrics=None,
+    target_half_life=None,
+    bound_degradation_factor=1.0,
 ) -> EngagementMetrics:
     """Occupancy metrics under PK for arrays of compounds (SI units; see module docstring).
 
@@ -644,12 +685,21 @@ def engagement_metrics(
     ``metrics``: names of the metrics wanted (default all); the others are
     NaN and their extra work is skipped (the steady-state trough costs two
     more integrations, the rapid-equilibrium metrics their own root searches).
+
+    Target turnover: ``target_half_life`` (s; NaN or None = no turnover)
+    and ``bound_degradation_factor`` (bound target degraded at this multiple
+    of the free target's rate; default 1, alike).  See :func:`turnover_rates`.
     """
     wanted = _wanted(metrics)
     shape, (kon, koff, route, cmax, tmax, hl, thr, tau) = _prepare(
         kon, koff, route, cmax, tmax, half_life, threshold, dosing_interval
     )
+    kdeg, fac = turnover_rates(target_half_life, bound_degradation_factor, shape)
     n = kon.size
+    two = (kdeg > 0) & (fac != 1.0)
+    if np.any(two):
+        return _two_state_metrics(kon, koff, route, cmax, tmax, hl, thr, tau, n_doses, kdeg, fac, steps, wanted, shape)
+    koff = koff + kdeg  # alike degradation: the bound state is left at koff + kdeg
     nd = np.broadcast_to(np.asarray(1 if n_doses is None else n_doses), shape).ravel()
     if np.any(nd < 1) or np.any(nd != np.round(nd)):
         raise InputError("number of doses must be a whole number >= 1")
@@ -670,6 +720,33 @@ def engagement_metrics(
             for k, v in res.items():
                 out[k][idx] = v
     return EngagementMetrics(**{k: v.reshape(shape) for k, v in out.items()})
+
+
+def turnover_rates(target_half_life, bound_degradation_factor=1.0, shape=None):
+    """(kdeg, factor) arrays: target degradation rate ln2/t1/2 (0 without turnover) and the bound-target factor.
+
+    Target turnover (free target R, bound RL, both as fractions of the
+    drug-free steady state R0 = ksyn/kdeg)::
+
+        dR/dt  = kdeg (1 - R) - kon C R + koff RL
+        dRL/dt = kon C R - (koff + f kdeg) RL,      occupancy theta = RL/(R + RL)
+
+    With f = 1 (bound and free target degraded alike) R + RL stays 1 and
+    d theta/dt = kon C (1 - theta) - (koff + kdeg) theta: turnover adds to
+    koff, so the duration is set by the faster of dissociation and turnover.
+    """
+    thl = np.asarray(np.nan if target_half_life is None else target_half_life, dtype=float)
+    fac = np.asarray(1.0 if bound_degradation_factor is None else bound_degradation_factor, dtype=float)
+    if np.any(np.isfinite(thl) & (thl <= 0)) or np.any(np.isinf(thl)):
+        raise InputError("target half-life must be positive and finite")
+    if np.any(~np.isfinite(fac)) or np.any(fac < 0):
+        raise InputError("bound-target degradation factor must be a finite number >= 0")
+    with np.errstate(divide="ignore", invalid="ignore"):
+        kdeg = np.where(np.isfinite(thl), LN2 / np.where(np.isfinite(thl), thl, 1.0), 0.0)
+    if shape is not None:
+        kdeg = np.broadcast_to(kdeg, shape).ravel()
+        fac = np.broadcast_to(fac, shape).ravel()
+    return kdeg, fac
 
 
 def _tau_or_none(tau_i):
@@ -693,54 +770,59 @@ def _wanted(metrics) -> frozenset:
     return wanted
 
 
+_STEADY = frozenset({"trough_occupancy", "steady_peak_occupancy", "steady_time_above_s", "steady_offset_s"})
+
+
 def _metrics_chunk(reg, kon, koff, thr, steps, wanted=frozenset(_METRIC_NAMES)):
     n = kon.size
     nan = np.full(n, np.nan)
-    run = _solve(reg, kon, koff, thr, steps)
-    onset = offset = dur = peak = peak_t = pd_half = r_on = r_off = r_peak = nan
-    if wanted & {"onset_s", "offset_s", "duration_above_threshold_s", "pd_half_life_s"}:
-        onset, offset, dur = _theta_level_metrics(run, thr)
-    if wanted & {"peak_occupancy", "peak_time_s"}:
-        peak, peak_t = _peak(run, +1)
-    if "pd_half_life_s" in wanted:
-        # PD half-life: from the last fall below threshold to threshold/2
-        _, off_half, _ = _theta_level_metrics(run, thr / 2.0)
-        pd_half = np.where(np.isfinite(offset) & np.isfinite(off_half), off_half - offset, np.nan)
+    out = {k: nan for k in _METRIC_NAMES}
+    if wanted - _STEADY - {"terminal_half_life_s"}:
+        run = _solve(reg, kon, koff, thr, steps)
+        if wanted & {"onset_s", "offset_s", "duration_above_threshold_s", "pd_half_life_s"}:
+            out["onset_s"], out["offset_s"], out["duration_above_threshold_s"] = _theta_level_metrics(run, thr)
+        if wanted & {"peak_occupancy", "peak_time_s"}:
+            out["peak_occupancy"], out["peak_time_s"] = _peak(run, +1)
+        if "pd_half_life_s" in wanted:
+            # PD half-life: from the last fall below threshold to threshold/2
+            offset = out["offset_s"]
+            _, off_half, _ = _theta_level_metrics(run, thr / 2.0)
+            out["pd_half_life_s"] = np.where(np.isfinite(offset) & np.isfinite(off_half), off_half - offset, np.nan)
+        if wanted & {"rapid_onset_s", "rapid_offset_s", "rapid_peak_occupancy"}:
+            out["rapid_onset_s"], out["rapid_offset_s"], out["rapid_peak_occupancy"] = _rapid_metrics(run, thr)
     k_term = np.where(reg.oral, np.minimum(reg.ka, reg.ke), reg.ke)
-    terminal = LN2 / np.minimum(koff, k_term)
-    if wanted & {"rapid_onset_s", "rapid_offset_s", "rapid_peak_occupancy"}:
-        r_on, r_off, r_peak = _rapid_metrics(run, thr)
-    trough = nan
-    if "trough_occupancy" in wanted and np.all(np.isfinite(reg.tau)):
-        trough = _steady_trough(reg, kon, koff, thr, steps)
-    out = {
-        "onset_s": onset,
-        "offset_s": offset,
-        "duration_above_threshold_s": dur,
-        "peak_occupancy": peak,
-        "peak_time_s": peak_t,
-        "trough_occupancy": trough,
-        "pd_half_life_s": pd_half,
-        "terminal_half_life_s": terminal,
-        "rapid_onset_s": r_on,
-        "rapid_offset_s": r_off,
-        "rapid_peak_occupancy": r_peak,
-    }
+    out["terminal_half_life_s"] = LN2 / np.minimum(koff, k_term)
+    if wanted & _STEADY and np.all(np.isfinite(reg.tau)):
+        out.update(_steady_metrics(reg, kon, koff, thr, steps, wanted))
     return {k: (v if k in wanted else nan) for k, v in out.items()}
 
 
-def _steady_trough(reg, kon, koff, thr, steps):
-    """Minimum of theta over one interval of the periodic steady state.
+def _steady_fixed_point(reg, kon, koff, thr, steps):
+    """theta at each dose of the periodic steady state.
 
     The interval map theta -> a theta + b is affine (linear ODE); its fixed
     point b/(1-a) is the periodic solution's value at each dose.
     """
     probe = _solve(reg, kon, koff, thr, steps, steady_state=True, theta_start=np.zeros(kon.size))
-    b = probe.theta[:, -1]
-    fixed = b / -np.expm1(-probe.clock)
-    run = _solve(reg, kon, koff, thr, steps, steady_state=True, theta_start=fixed)
-    val, _ = _peak(run, -1)
-    return val
+    return probe.theta[:, -1] / -np.expm1(-probe.clock)
+
+
+def _steady_metrics(reg, kon, koff, thr, steps, wanted):
+    """Trough, peak and time above threshold over one interval of the periodic steady state, and the
+    offset after the last dose of a regimen at steady state (from that dose)."""
+    n = kon.size
+    out = {}
+    fixed = _steady_fixed_point(reg, kon, koff, thr, steps)
+    if wanted & {"trough_occupancy", "steady_peak_occupancy", "steady_time_above_s"}:
+        run = _solve(reg, kon, koff, thr, steps, steady_state=True, theta_start=fixed)
+        out["trough_occupancy"] = _peak(run, -1)[0] if "trough_occupancy" in wanted else np.full(n, np.nan)
+        out["steady_peak_occupancy"] = _peak(run, +1)[0] if "steady_peak_occupancy" in wanted else np.full(n, np.nan)
+        out["steady_time_above_s"] = _time_above(run, thr) if "steady_time_above_s" in wanted else np.full(n, np.nan)
+    if "steady_offset_s" in wanted:
+        wash = _solve(reg, kon, koff, thr, steps, washout=True, theta_start=fixed)
+        _, last, _ = _theta_level_metrics(wash, thr)
+        out["steady_offset_s"] = last
+    return out
 
 
 def engagement_timeseries(
@@ -757,6 +839,9 @@ def engagement_timeseries(
     t_end=None,
     max_points=2000,
     steps=(1200, 400),
+    steady_state=False,
+    target_half_life=None,
+    bound_degradation_factor=1.0,
 ) -> dict:
     """Time series for one compound: ``t_s``, ``conc_M``, ``occupancy``, ``occupancy_rapid``.
 
@@ -764,32 +849,61 @@ def engagement_timeseries(
     the exact exp(-koff t) tail when ``t_end`` lies beyond the grid.  Default
     ``t_end``: the latest of last dose + tmax + 5 half-lives and 1.5 x the
     offsets of theta and theta_rapid.
+
+    ``steady_state=True`` (needs ``dosing_interval``): one dosing interval of
+    the periodic steady state, then the last dose at ``t = tau`` and the
+    washout after it (``n_doses`` is ignored); time 0 is a steady-state dose.
+    Target turnover as in :func:`engagement_metrics` (``occupancy_rapid`` is
+    then kon C/(kon C + koff + kdeg)).
     """
     if any(np.ndim(a) for a in (kon, koff, route, cmax, half_life)) or (tmax is not None and np.ndim(tmax)):
         raise InputError("engagement_timeseries takes one compound (scalars)")
     shape, (kon_a, koff_a, route_a, cmax_a, tmax_a, hl_a, thr_a, tau_a) = _prepare(
         kon, koff, route, cmax, tmax, half_life, threshold, dosing_interval
     )
-    reg = Regimen.build(route_a, cmax_a, hl_a, np.where(route_a == "oral", tmax_a, np.nan), _tau_or_none(tau_a), int(n_doses))
-    run = _solve(reg, kon_a, koff_a, thr_a, steps)
-    t = run.t[0]
+    kdeg, fac = turnover_rates(target_half_life, bound_degradation_factor, shape)
+    if steady_state and not np.isfinite(tau_a[0]):
+        raise InputError("a steady-state time series needs a dosing interval")
+    if kdeg[0] > 0 and fac[0] != 1.0:
+        return _two_state_timeseries(kon_a, koff_a, route_a, cmax_a, tmax_a, hl_a, thr_a, tau_a, int(n_doses), kdeg, fac,
+                                     steady_state, t_end, max_points, steps)
+    koff_a = koff_a + kdeg
+    reg = Regimen.build(route_a, cmax_a, hl_a, np.where(route_a == "oral", tmax_a, np.nan), _tau_or_none(tau_a),
+                        1 if steady_state else int(n_doses))
+    if steady_state:
+        fixed = _steady_fixed_point(reg, kon_a, koff_a, thr_a, steps)
+        ss = _solve(reg, kon_a, koff_a, thr_a, steps, steady_state=True, theta_start=fixed)
+        run = _solve(reg, kon_a, koff_a, thr_a, steps, washout=True, theta_start=fixed)
+        tau0 = float(reg.tau[0])
+        t = np.r_[ss.t[0], tau0 + run.t[0]]
+        th = np.r_[ss.theta[0], run.theta[0]]
+        c = np.r_[ss.conc[0], run.conc[0]]
+        t_grid_end = tau0 + float(run.t_end[0])
+        last_dose = tau0
+    else:
+        run = _solve(reg, kon_a, koff_a, thr_a, steps)
+        t, th, c = run.t[0], run.theta[0], run.conc[0]
+        t_grid_end = float(run.t_end[0])
+        last_dose = (int(n_doses) - 1) * (float(reg.tau[0]) if np.isfinite(reg.tau[0]) else 0.0)
     keep = np.r_[True, np.diff(t) > 0]  # drop repeated boundary nodes
-    t = t[keep]
-    th = run.theta[0][keep]
-    c = run.conc[0][keep]
+    t, th, c = t[keep], th[keep], c[keep]
     kd = float(koff_a[0] / kon_a[0])
     if t_end is None:
         _, offset, _ = _theta_level_metrics(run, thr_a)
         r_on, r_off, _ = _rapid_metrics(run, thr_a)
-        last_dose = (int(n_doses) - 1) * (float(reg.tau[0]) if np.isfinite(reg.tau[0]) else 0.0)
+        base = last_dose if steady_state else 0.0
         pk_scale = last_dose + float(reg.tmax[0]) + 5.0 * float(half_life)
-        ends = [pk_scale] + [1.5 * float(v[0]) for v in (offset, r_off) if np.isfinite(v[0])]
+        ends = [pk_scale] + [base + 1.5 * float(v[0]) for v in (offset, r_off) if np.isfinite(v[0])]
         t_end = max(ends)
     if t_end > t[-1]:
         extra = np.linspace(t[-1], t_end, 200)[1:]
         t = np.r_[t, extra]
-        th = np.r_[th, th[-1] * np.exp(-koff_a[0] * (extra - run.t_end[0]))]
-        c = np.r_[c, reg.at(extra[None, :])[0]]
+        th = np.r_[th, th[-1] * np.exp(-koff_a[0] * (extra - t_grid_end))]
+        if steady_state:
+            c_extra, _ = reg.local(np.inf, (extra - last_dose)[None, :])
+            c = np.r_[c, c_extra[0]]
+        else:
+            c = np.r_[c, reg.at(extra[None, :])[0]]
     else:
         sel = t <= t_end
         t, th, c = t[sel], th[sel], c[sel]
