@@ -205,4 +205,4 @@ def test_the_steps_cover_every_revision_from_the_first_to_head():
     revs = _revisions()
     steps = _steps()
     assert steps[0] == (revs[0], migrate.head())
-    assert [b for _a, b in steps[1:]] == revs[1:]
+    assert set(zip(revs, revs[1:])) <= set(steps)  # every consecutive pair (with two revisions it is first -> head)

@@ -108,6 +108,8 @@ class Program(Base):
     offset_max_text: Mapped[str | None] = mapped_column(String(64))
     dosing_interval_s: Mapped[float | None] = mapped_column(Float)
     dosing_interval_text: Mapped[str | None] = mapped_column(String(64))
+    target_half_life_s: Mapped[float | None] = mapped_column(Float)
+    target_half_life_text: Mapped[str | None] = mapped_column(String(64))
     created_at: Mapped[dt.datetime] = mapped_column(UTCDateTime, default=utcnow)
 
 

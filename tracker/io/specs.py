@@ -8,7 +8,8 @@ value and written back on export, so a round trip is lossless.
 table       columns (required first; ``*`` = optional)
 ==========  ==================================================================
 programs    program, target*, intended_profile*, engagement_threshold*,
-            onset_max*, duration_min*, offset_max*, dosing_interval*
+            onset_max*, duration_min*, offset_max*, dosing_interval*,
+            target_half_life*
 compounds   compound, program, series*, stage, smiles*
 potency     compound, assay, readout, value, incubation, format,
             tracer_conc*, tracer_kd*, tracer_residence_time*,
@@ -93,6 +94,7 @@ PROGRAMS = TableSpec(
         _q("duration_min", "time", "s"),
         _q("offset_max", "time", "s"),
         _q("dosing_interval", "time", "s"),
+        _q("target_half_life", "time", "s"),
     ),
     key="program",
 )

@@ -69,7 +69,8 @@ def collect_rows(session) -> dict[str, list[dict[str, str | None]]]:
     rows = session.execute(select(Program).order_by(Program.id)).scalars()
     tables["programs"] = [
         {"program": p.name, "target": p.target, "intended_profile": p.intended_profile,
-         **_quantity_cells(p, "programs", ("engagement_threshold", "onset_max", "duration_min", "offset_max", "dosing_interval"))}
+         **_quantity_cells(p, "programs", ("engagement_threshold", "onset_max", "duration_min", "offset_max", "dosing_interval",
+                                           "target_half_life"))}
         for p in rows
     ]
 

@@ -75,7 +75,7 @@ _KINETICS_COLS = (KineticMeasurement.id, KineticMeasurement.compound_id, Kinetic
 _PK_COLS = (PKProfile.id, PKProfile.compound_id, PKProfile.species, PKProfile.route, PKProfile.half_life_s, PKProfile.free_cmax_M,
             PKProfile.tmax_s, PKProfile.dosing_interval_s)
 _PROGRAM_COLS = (Program.id, Program.name, Program.intended_profile, Program.engagement_threshold, Program.onset_max_s,
-                 Program.duration_min_s, Program.offset_max_s, Program.dosing_interval_s)
+                 Program.duration_min_s, Program.offset_max_s, Program.dosing_interval_s, Program.target_half_life_s)
 
 
 def _lean(session, stmt) -> pd.DataFrame:

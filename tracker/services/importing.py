@@ -59,7 +59,8 @@ CHUNK = 5_000
 WRITER_ROLES = ("lead", "scientist")
 
 MODELS = {"potency": Potency, "kinetics": KineticMeasurement, "pk": PKProfile}
-_PROGRAM_FIELDS = ("target", "intended_profile", "engagement_threshold", "onset_max", "duration_min", "offset_max", "dosing_interval")
+_PROGRAM_FIELDS = ("target", "intended_profile", "engagement_threshold", "onset_max", "duration_min", "offset_max", "dosing_interval",
+                   "target_half_life")
 
 
 class Progress:

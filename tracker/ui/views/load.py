@@ -21,7 +21,7 @@ from tracker.ui.main import context
 EXAMPLES: dict[str, dict[str, str]] = {
     "programs": {"program": "Example program", "target": "Example kinase", "intended_profile": "once-daily",
                  "engagement_threshold": "0.7", "onset_max": "3 h", "duration_min": "20 h", "offset_max": "",
-                 "dosing_interval": "24 h"},
+                 "dosing_interval": "24 h", "target_half_life": "30 h"},
     "compounds": {"compound": "SAMPLE-0001", "program": "Example program", "series": "sample-amide", "stage": "hit", "smiles": ""},
     "potency": {"compound": "SAMPLE-0001", "assay": "binding 1h", "readout": "KD", "value": "3.2 nM", "incubation": "1 h",
                 "format": "binding", "date": "2026-01-15", "source": "ELN page 12"},
