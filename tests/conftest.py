@@ -212,9 +212,9 @@ def pytest_terminal_summary(terminalreporter, exitstatus, config):
 # ------------------------------------------------------------------ invented sample data
 SAMPLE = {
     "programs.csv": (
-        "program,target,intended_profile,engagement_threshold,onset_max,duration_min,offset_max,dosing_interval\n"
-        "Ashgrove,Kinase AG1,once-daily,0.8,2 h,24 h,,24 h\n"
-        "Brackenfold,Receptor BF2,short-acting,50 %,15 min,,4 h,\n"
+        "program,target,intended_profile,engagement_threshold,onset_max,duration_min,offset_max,dosing_interval,target_half_life\n"
+        "Ashgrove,Kinase AG1,once-daily,0.8,2 h,24 h,,24 h,30 h\n"
+        "Brackenfold,Receptor BF2,short-acting,50 %,15 min,,4 h,,\n"
     ),
     "compounds.csv": (
         "compound,program,series,stage,smiles\n"

@@ -165,6 +165,33 @@ def test_steady_state_regimen_with_turnover_matches_the_two_state_ode(case, tau)
     assert float(m.steady_offset_s) == pytest.approx(ref["steady_offset"], rel=TOL)
 
 
+@pytest.mark.parametrize("f", [0.0, 0.5, 2.0])
+@pytest.mark.parametrize("case", CASES, ids=["slow-rt-fast-turnover", "turnover-slower", "iv"])
+def test_bound_target_degraded_at_its_own_rate_matches_the_two_state_ode(case, f):
+    # computed: scipy solve_ivp LSODA rtol 1e-10 (two-state model, bound target degraded at f x kdeg:
+    # f = 0 binding protects the target, f = 2 binding speeds its removal); tolerance 1e-4
+    *args, thl = case
+    m = engagement_metrics(*args, dosing_interval=24 * H, target_half_life=thl, bound_degradation_factor=f)
+    single = engagement_metrics(*args, target_half_life=thl, bound_degradation_factor=f)
+    ref1 = reference(*args, target_hl=thl, f=f)
+    ref = reference(*args, target_hl=thl, f=f, tau=24 * H)
+    assert float(single.onset_s) == pytest.approx(ref1["onset"], rel=TOL)
+    assert float(single.offset_s) == pytest.approx(ref1["offset"], rel=TOL)
+    assert float(single.duration_above_threshold_s) == pytest.approx(ref1["duration"], rel=TOL)
+    assert float(single.peak_occupancy) == pytest.approx(ref1["peak"], rel=TOL)
+    assert float(m.trough_occupancy) == pytest.approx(ref["trough"], rel=TOL)
+    assert float(m.steady_peak_occupancy) == pytest.approx(ref["steady_peak"], rel=TOL)
+    assert float(m.steady_time_above_s) == pytest.approx(ref["steady_time_above"], rel=TOL, abs=1e-6 * 24 * H)
+    assert float(m.steady_offset_s) == pytest.approx(ref["steady_offset"], rel=TOL)
+
+
+def test_protecting_the_bound_target_lengthens_engagement_and_speeding_its_removal_shortens_it():
+    # direction check of the bound-target factor (computed values above): f = 0 > f = 1 > f = 2 offsets
+    args = (1e6, 1 / (7 * 24 * H), "oral", 20 * NM, 1 * H, 6 * H, 0.5)
+    off = [float(engagement_metrics(*args, target_half_life=8 * H, bound_degradation_factor=f).offset_s) for f in (0.0, 1.0, 2.0)]
+    assert off[0] > off[1] > off[2]
+
+
 def test_without_turnover_the_steady_state_metrics_match_the_one_state_ode():
     # computed: scipy solve_ivp LSODA rtol 1e-10 with kdeg = 0 (target stable), q12h oral
     args = (1 / (24 * H) / (0.5 * NM), 1 / (24 * H), "oral", 1 * NM, 1 * H, 4 * H, 0.5)

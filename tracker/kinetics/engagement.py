@@ -696,15 +696,17 @@ def engagement_metrics(
     )
     kdeg, fac = turnover_rates(target_half_life, bound_degradation_factor, shape)
     n = kon.size
-    two = (kdeg > 0) & (fac != 1.0)
-    if np.any(two):
-        return _two_state_metrics(kon, koff, route, cmax, tmax, hl, thr, tau, n_doses, kdeg, fac, steps, wanted, shape)
-    koff = koff + kdeg  # alike degradation: the bound state is left at koff + kdeg
     nd = np.broadcast_to(np.asarray(1 if n_doses is None else n_doses), shape).ravel()
     if np.any(nd < 1) or np.any(nd != np.round(nd)):
         raise InputError("number of doses must be a whole number >= 1")
     if np.any((nd > 1) & ~np.isfinite(tau)):
         raise InputError("repeat dosing needs a dosing interval")
+    if np.any((kdeg > 0) & (fac != 1.0)):  # bound target degraded at its own rate: two states
+        from .turnover import two_state_metrics
+
+        res = two_state_metrics(kon, koff, route, cmax, tmax, hl, thr, tau, nd, kdeg, fac, steps, wanted, _METRIC_NAMES)
+        return EngagementMetrics(**{k: res[k].reshape(shape) for k in _METRIC_NAMES})
+    koff = koff + kdeg  # alike degradation: the bound state is left at koff + kdeg
     out = {f.name: np.full(n, np.nan) for f in fields(EngagementMetrics)}
     for nval in np.unique(nd):
         grp = np.nonzero(nd == nval)[0]
@@ -865,8 +867,10 @@ def engagement_timeseries(
     if steady_state and not np.isfinite(tau_a[0]):
         raise InputError("a steady-state time series needs a dosing interval")
     if kdeg[0] > 0 and fac[0] != 1.0:
-        return _two_state_timeseries(kon_a, koff_a, route_a, cmax_a, tmax_a, hl_a, thr_a, tau_a, int(n_doses), kdeg, fac,
-                                     steady_state, t_end, max_points, steps)
+        from .turnover import two_state_timeseries
+
+        return two_state_timeseries(kon_a, koff_a, route_a, cmax_a, tmax_a, hl_a, thr_a, tau_a, int(n_doses), kdeg, fac,
+                                    steady_state, t_end, max_points, steps)
     koff_a = koff_a + kdeg
     reg = Regimen.build(route_a, cmax_a, hl_a, np.where(route_a == "oral", tmax_a, np.nan), _tau_or_none(tau_a),
                         1 if steady_state else int(n_doses))

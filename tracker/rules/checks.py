@@ -37,10 +37,10 @@ import pandas as pd
 
 from ..domain import STAGES
 from ..kinetics.assay import apparent_affinity, assay_floor, min_incubation, residence_time_bounds, saturation_fold
-from ..kinetics.engagement import engagement_metrics
 from .. import fmt as _fmt
 from ..fmt import conc as fmt_conc
 from ..fmt import duration as fmt_time
+from .engagement import ONSET_DOSES, REGIMEN_METRICS, duration_set_by, regimen_engagement
 
 __all__ = [
     "FINDING_COLUMNS",
@@ -901,25 +901,17 @@ _LIMIT_PROMPTS = {
 _PROFILE_COLUMNS = ("engagement_threshold", "onset_max_s", "duration_min_s", "offset_max_s", "dosing_interval_s")
 
 
-_CHECKED_METRICS = ("onset_s", "offset_s", "duration_above_threshold_s", "peak_occupancy", "trough_occupancy")
+_CHECKED_METRICS = REGIMEN_METRICS
 
 
-def _metrics(kon, koff, route, cmax, tmax, hl, thr, tau, wanted=_CHECKED_METRICS) -> dict[str, np.ndarray]:
-    """engagement_metrics over rows, called once per group (with and without a dosing interval); only ``wanted`` computed."""
-    n = kon.size
-    out = {k: np.full(n, np.nan) for k in _CHECKED_METRICS}
-    has_tau = np.isfinite(tau)
-    for grp in (has_tau, ~has_tau):
-        if not grp.any():
-            continue
-        m = engagement_metrics(kon[grp], koff[grp], route[grp], cmax[grp], np.where(route[grp] == "oral", tmax[grp], np.nan),
-                               hl[grp], thr[grp], tau[grp] if has_tau[grp].all() else None, metrics=wanted)
-        for k in out:
-            out[k][grp] = getattr(m, k)
-    return out
+def _metrics(kon, koff, route, cmax, tmax, hl, thr, tau, wanted=_CHECKED_METRICS, thl=None, fac=1.0) -> dict[str, np.ndarray]:
+    """The judged engagement (:func:`tracker.rules.engagement.regimen_engagement`): one dose, or the regimen at
+    steady state where ``tau`` is set; only ``wanted`` computed."""
+    return regimen_engagement(kon, koff, route, cmax, tmax, hl, thr, tau, target_half_life=thl,
+                              bound_degradation_factor=fac, metrics=wanted)
 
 
-def check_duration_mismatch(frame: pd.DataFrame, *, default_engagement_threshold=0.5) -> pd.DataFrame:
+def check_duration_mismatch(frame: pd.DataFrame, *, default_engagement_threshold=0.5, bound_target_degradation_factor=1.0) -> pd.DataFrame:
     """``duration-mismatch``: simulated engagement against the program's intended profile.
 
     ``frame``: one row per compound with ``compound_id``, ``stage``,
@@ -930,12 +922,18 @@ def check_duration_mismatch(frame: pd.DataFrame, *, default_engagement_threshold
     (text), and the PK ``route``, ``free_cmax_M``, ``tmax_s``,
     ``half_life_s``, ``species``, ``pk_id``, ``kinetic_measurement_id``.
 
-    Engagement d(theta)/dt = kon C (1 - theta) - koff theta under one dose
-    (:func:`~tracker.kinetics.engagement.engagement_metrics`, one vectorised
-    call per group).  Limits: onset <= ``onset_max``, time above threshold >=
-    ``duration_min``, last time above threshold <= ``offset_max``; with a
+    Engagement d(theta)/dt = kon C (1 - theta) - koff theta, with target
+    turnover where the program gives ``target_half_life_s``
+    (:func:`tracker.rules.engagement.regimen_engagement`, vectorised).  Without
+    a dosing interval one dose is judged; with one, the regimen at steady
+    state (time above threshold per interval, trough, offset after the last
+    dose); the message and ``data.regimen`` say which.  Limits: onset <=
+    ``onset_max``, time above threshold >= ``duration_min`` (per interval:
+    at most the interval), last time above threshold <= ``offset_max``; with a
     dosing interval, the steady-state trough must stay above the threshold when
-    no ``duration_min`` shorter than the interval allows a gap.  A compound
+    no ``duration_min`` shorter than the interval allows a gap.  Where the
+    residence time exceeds the bound target's half-life the message says that
+    turnover, not dissociation, sets the duration (``data.duration_set_by``).  A compound
     that never reaches the threshold gets one finding for that.  Severity:
     ``high`` at candidate or later, ``moderate`` at lead-optimization and
     advanced-lead, ``low`` earlier.  At candidate or later, missing kinetics,
@@ -959,6 +957,8 @@ def check_duration_mismatch(frame: pd.DataFrame, *, default_engagement_threshold
     dur_min = _num(frame, "duration_min_s")
     off_max = _num(frame, "offset_max_s")
     tau = _num(frame, "dosing_interval_s")
+    thl = _num(frame, "target_half_life_s")
+    fac = _col(bound_target_degradation_factor, n)
     has_limits = np.isfinite(onset_max) | np.isfinite(dur_min) | np.isfinite(off_max) | np.isfinite(tau)
     thr = np.where(np.isfinite(thr_prog), thr_prog, _col(default_engagement_threshold, n))
     has_kin = np.isfinite(koff) & (koff > 0)
@@ -991,10 +991,11 @@ def check_duration_mismatch(frame: pd.DataFrame, *, default_engagement_threshold
         })
     if can.any():
         ci = np.nonzero(can)[0]
-        met = _metrics(kon[ci], koff[ci], route[ci], cmax[ci], tmax[ci], hl[ci], thr[ci], tau[ci])
+        met = _metrics(kon[ci], koff[ci], route[ci], cmax[ci], tmax[ci], hl[ci], thr[ci], tau[ci], thl=thl[ci], fac=fac[ci])
         fails = _limit_failures(met, thr[ci], onset_max[ci], dur_min[ci], off_max[ci], tau[ci])
         if fails:
-            _intervals(fails, frame, ci, kon, route, cmax, tmax, hl, thr, tau)
+            _intervals(fails, frame, ci, kon, route, cmax, tmax, hl, thr, tau, thl, fac)
+        set_by = np.atleast_1d(duration_set_by(koff[ci], thl[ci], fac[ci]))
         sev_by_stage = np.where(stage_i >= _CANDIDATE, "high", np.where(stage_i >= _LEAD_OPT, "moderate", "low"))
         for f in fails:
             i = ci[f["row"]]
@@ -1008,10 +1009,19 @@ def check_duration_mismatch(frame: pd.DataFrame, *, default_engagement_threshold
                 + f"), RT {fmt_time(1 / koff[i])}, KD {fmt_conc(koff[i] / kon[i])} ({kd_source}), "
                 f"threshold {_fmt.pct(thr[i])}" + ("" if np.isfinite(thr_prog[i]) else " (default; the program sets none)")
             )
+            j = f["row"]
+            regimen = met["regimen"][j]
+            if np.isfinite(thl[i]):
+                context += f", target t½ {fmt_time(thl[i])}"
+            turnover_note = ""
+            if set_by[j] == "turnover":
+                turnover_note = (f"; target turnover (t½ {fmt_time(thl[i] / fac[i])}), not dissociation (RT {fmt_time(1 / koff[i])}), "
+                                 "sets the duration")
             caution = CAUTION_OFFSET if f["limit"] == "offset_max" else CAUTION_NOT_DOSING_ADVICE
             records.append({
                 "compound_id": r.compound_id, "rule": "duration-mismatch", "severity": sev_by_stage[i],
-                "message": f"{f['text']}{f.get('ci_text', '')} for the {profile[i]} profile; simulated with {context}",
+                "message": f"{f['text']}{f.get('ci_text', '')} for the {profile[i]} profile ({regimen}){turnover_note}; "
+                           f"simulated with {context}",
                 "prompt": _LIMIT_PROMPTS[f["limit"]].format(profile=profile[i], next=next_stage(stage)),
                 "caution": caution,
                 "data": _data(
@@ -1022,6 +1032,8 @@ def check_duration_mismatch(frame: pd.DataFrame, *, default_engagement_threshold
                     peak_occupancy=met["peak_occupancy"][f["row"]], trough_occupancy=met["trough_occupancy"][f["row"]],
                     residence_time_s=1 / koff[i], kd_M=koff[i] / kon[i], pk_id=r.pk_id,
                     kinetic_measurement_id=r.kinetic_measurement_id,
+                    regimen="steady state" if np.isfinite(tau[i]) else "single dose", regimen_text=regimen,
+                    dosing_interval_s=tau[i], target_half_life_s=thl[i], duration_set_by=set_by[j],
                 ),
             })
     return _frame(records)
@@ -1035,7 +1047,9 @@ def _limit_failures(met, thr, onset_max, dur_min, off_max, tau) -> list[dict]:
     """One dict per failed limit: row (within the simulated rows), limit, value, limit_value, excess, text."""
     onset, offset, dur = met["onset_s"], met["offset_s"], met["duration_above_threshold_s"]
     peak, trough = met["peak_occupancy"], met["trough_occupancy"]
-    never = ~np.isfinite(onset)
+    regimen = np.isfinite(tau)
+    # one dose: never above threshold = no onset; a regimen: the steady-state peak stays below it
+    never = np.where(regimen, ~(peak >= thr), ~np.isfinite(onset))
     out = []
     pct = _fmt.pct
     for j in range(onset.size):
@@ -1044,18 +1058,30 @@ def _limit_failures(met, thr, onset_max, dur_min, off_max, tau) -> list[dict]:
                         "excess": peak[j] - thr[j],
                         "text": f"engagement never reaches the {pct(thr[j])} threshold (peak occupancy {pct(peak[j])})"})
             continue
-        if np.isfinite(onset_max[j]) and onset[j] > onset_max[j]:
+        if np.isfinite(onset_max[j]) and not onset[j] <= onset_max[j]:
+            if not np.isfinite(onset[j]):  # a regimen that gets there only after more doses than simulated
+                out.append({"row": j, "limit": "onset_max", "value": onset[j], "limit_value": onset_max[j], "excess": math.nan,
+                            "text": f"onset not reached within {ONSET_DOSES} doses, beyond the {fmt_time(onset_max[j])} limit"})
+                continue
             out.append({"row": j, "limit": "onset_max", "value": onset[j], "limit_value": onset_max[j],
                         "excess": onset[j] - onset_max[j],
                         "text": f"onset {fmt_time(onset[j])} exceeds the {fmt_time(onset_max[j])} limit by {fmt_time(onset[j] - onset_max[j])} ({fmt_fold(onset[j] / onset_max[j])})"})
-        if np.isfinite(dur_min[j]) and dur[j] < dur_min[j]:
+        if regimen[j]:
+            # per interval at steady state; a minimum of a whole interval or more is continuous cover: the trough check
+            if np.isfinite(dur_min[j]) and dur_min[j] < tau[j] and dur[j] < dur_min[j]:
+                out.append({"row": j, "limit": "duration_min", "value": dur[j], "limit_value": dur_min[j],
+                            "excess": dur[j] - dur_min[j],
+                            "text": f"time above threshold {fmt_time(dur[j])} per {fmt_time(tau[j])} interval at steady state falls "
+                                    f"{fmt_time(dur_min[j] - dur[j])} short of the {fmt_time(dur_min[j])} minimum ({fmt_fold(dur[j] / dur_min[j])})"})
+        elif np.isfinite(dur_min[j]) and dur[j] < dur_min[j]:
             out.append({"row": j, "limit": "duration_min", "value": dur[j], "limit_value": dur_min[j],
                         "excess": dur[j] - dur_min[j],
                         "text": f"time above threshold {fmt_time(dur[j])} falls {fmt_time(dur_min[j] - dur[j])} short of the {fmt_time(dur_min[j])} minimum ({fmt_fold(dur[j] / dur_min[j])}) after one dose"})
         if np.isfinite(off_max[j]) and offset[j] > off_max[j]:
+            after = "the last dose" if regimen[j] else "dosing"
             out.append({"row": j, "limit": "offset_max", "value": offset[j], "limit_value": off_max[j],
                         "excess": offset[j] - off_max[j],
-                        "text": f"offset {fmt_time(offset[j])} after dosing exceeds the {fmt_time(off_max[j])} limit by {fmt_time(offset[j] - off_max[j])} ({fmt_fold(offset[j] / off_max[j])})"})
+                        "text": f"offset {fmt_time(offset[j])} after {after} exceeds the {fmt_time(off_max[j])} limit by {fmt_time(offset[j] - off_max[j])} ({fmt_fold(offset[j] / off_max[j])})"})
         gap_allowed = np.isfinite(dur_min[j]) and dur_min[j] < tau[j]
         if np.isfinite(tau[j]) and np.isfinite(trough[j]) and trough[j] < thr[j] and not gap_allowed:
             out.append({"row": j, "limit": "dosing_interval", "value": trough[j], "limit_value": thr[j],
@@ -1064,7 +1090,7 @@ def _limit_failures(met, thr, onset_max, dur_min, off_max, tau) -> list[dict]:
     return out
 
 
-def _intervals(fails, frame, ci, kon, route, cmax, tmax, hl, thr, tau) -> None:
+def _intervals(fails, frame, ci, kon, route, cmax, tmax, hl, thr, tau, thl, fac) -> None:
     """Re-simulate the failing metric at koff_low and koff_high (kon fixed) and attach the interval."""
     k_lo = _num(frame, "koff_low_per_s")
     k_hi = _num(frame, "koff_high_per_s")
@@ -1075,7 +1101,7 @@ def _intervals(fails, frame, ci, kon, route, cmax, tmax, hl, thr, tau) -> None:
     both = np.concatenate([idx, idx])  # both interval ends in one simulation call per dosing group
     wanted = tuple(sorted({_METRIC_OF_LIMIT[f["limit"]] for f in fails}))  # only the metrics that failed
     met = _metrics(kon[both], np.concatenate([k_lo[idx], k_hi[idx]]), route[both], cmax[both], tmax[both], hl[both], thr[both], tau[both],
-                   wanted)
+                   wanted, thl=thl[both], fac=fac[both])
     ends = [{k: v[: idx.size] for k, v in met.items()}, {k: v[idx.size :] for k, v in met.items()}]
     pos = {r: p for p, r in enumerate(rows)}
     for f in fails:

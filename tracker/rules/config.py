@@ -108,6 +108,10 @@ class RuleConfig:
     #: engagement threshold used when a program sets time limits but no threshold
     #: (design choice: half occupancy, the conventional midpoint; say so in the finding)
     default_engagement_threshold: float = 0.5
+    #: bound target is degraded at this multiple of the free target's rate when the program gives a
+    #: target half-life (design choice: 1, "degraded alike", unless a program knows that binding
+    #: protects the target (< 1) or speeds its removal (> 1))
+    bound_target_degradation_factor: float = 1.0
 
     def __post_init__(self):
         problems = validate_values(asdict(self))
@@ -146,6 +150,7 @@ _LIMITS: dict[str, tuple[float, float, str]] = {
     "max_incubation_s": (1.0, 365 * 86400.0, "a time in s"),
     "conflict_fold": (1.0, 1e6, "a fold > 1"),
     "tight_binding_factor": (1.0, 1e3, "a factor >= 1"),
+    "bound_target_degradation_factor": (0.0, 100.0, "a factor between 0 and 100"),
 }
 _STRICT_LOW = {"fold_tolerance", "fold_moderate", "fold_high", "ki_shift_threshold", "no_shift_ratio",
                "insurmountable_fraction", "insurmountable_strong_fraction", "default_engagement_threshold", "conflict_fold"}

@@ -63,6 +63,7 @@ from .checks import (
 )
 from .config import DEFAULTS, FIELD_NAMES, RULES, SEVERITY_RANK, RuleConfig, version_label
 from .evidence import QUALITATIVE_METHODS, READING_COLUMNS, select_kinetics, predict_readings, summarise
+from .engagement import dosing_interval
 
 __all__ = ["Portfolio", "GradeResult", "grade_frames", "parse_fit", "assay_key", "QUALITATIVE_METHODS", "GRADE_ORDER"]
 
@@ -517,7 +518,8 @@ def grade_frames(portfolio: Portfolio, configs: Mapping[str, RuleConfig] | None 
     # ---- duration-mismatch
     dm = _duration_frame(comp, portfolio.programs, _duration_kinetics(kin, selection.runs, portfolio.programs, comp), portfolio.pk, rows)
     dm["default_engagement_threshold"] = _cfg(dm, table, "default_engagement_threshold")
-    found.append(check_duration_mismatch(dm, default_engagement_threshold=dm["default_engagement_threshold"].to_numpy(float)))
+    found.append(check_duration_mismatch(dm, default_engagement_threshold=dm["default_engagement_threshold"].to_numpy(float),
+                                         bound_target_degradation_factor=_cfg(dm, table, "bound_target_degradation_factor")))
 
     # ---- combine
     found = [f for f in found if f is not None and not f.empty]
@@ -580,7 +582,8 @@ def _evidence_text(likely: pd.DataFrame | None) -> dict:
 
 
 def _duration_frame(comp, programs, kin, pk, rows) -> pd.DataFrame:
-    prog_cols = ["intended_profile", "engagement_threshold", "onset_max_s", "duration_min_s", "offset_max_s", "dosing_interval_s"]
+    prog_cols = ["intended_profile", "engagement_threshold", "onset_max_s", "duration_min_s", "offset_max_s", "dosing_interval_s",
+                 "target_half_life_s"]
     pr = programs.rename(columns={"name": "program"}) if programs is not None else pd.DataFrame(columns=["program"])
     for c in prog_cols:
         if c not in pr.columns:
@@ -604,7 +607,7 @@ def _duration_frame(comp, programs, kin, pk, rows) -> pd.DataFrame:
         kd = ids.map(kd_est).astype(float)
         f.loc[need, "kon_per_M_s"] = f.loc[need, "koff_per_s"].astype(float) / kd
         f.loc[need, "kd_source"] = ids.map(label)
-    f["dosing_interval_s"] = f["dosing_interval_s"].astype(float).fillna(f["pk_dosing_interval_s"].astype(float))
+    f["dosing_interval_s"] = dosing_interval(f["dosing_interval_s"].astype(float), f["pk_dosing_interval_s"].astype(float))
     return f
 
 
