@@ -42,3 +42,19 @@ def test_the_programs_template_offers_the_column():
     assert "target_half_life" in PROGRAMS.names
     assert EXAMPLES["programs"]["target_half_life"] == "30 h"
     assert b"target_half_life" in template_csv("programs")
+
+
+def test_an_oral_tmax_beyond_fifty_elimination_time_constants_is_refused_at_import(migrated_engine, tmp_path, db_snapshot):
+    # 90 min half-life: 50 time constants = 50 x 1.5 h / ln2 = 108 h; 120 h is beyond
+    import pytest
+
+    from tracker.errors import KrtError
+
+    files = dict(SAMPLE)
+    files["pk.csv"] = SAMPLE["pk.csv"].replace("BOR-001,dog,oral,90 min,12 nM,30 min", "BOR-001,dog,oral,90 min,12 nM,120 h")
+    folder = write_files(tmp_path / "bad", files)
+    before = db_snapshot(migrated_engine)
+    with pytest.raises(KrtError) as exc:
+        import_path(migrated_engine, folder)
+    assert "pk.csv:4: tmax: tmax is more than 50 elimination time constants" in str(exc.value)
+    assert db_snapshot(migrated_engine) == before

@@ -186,6 +186,13 @@ def _validate_rows(df: pd.DataFrame, spec: TableSpec) -> tuple[pd.DataFrame, lis
     if spec.name == "pk":
         oral_no_tmax = ((df["route"] == "oral") & df["tmax"].isna()).to_numpy(dtype=bool)
         flag(np.flatnonzero(oral_no_tmax), "tmax", "tmax is required for oral PK")
+        from ..kinetics.pk import MAX_TMAX_KE
+
+        with np.errstate(invalid="ignore", divide="ignore"):
+            t_ke = df["tmax_s"].to_numpy(dtype=float) * np.log(2) / df["half_life_s"].to_numpy(dtype=float)
+        too_long = ((df["route"] == "oral").to_numpy(dtype=bool) & (t_ke > MAX_TMAX_KE))
+        flag(np.flatnonzero(too_long), "tmax",
+             f"tmax is more than {MAX_TMAX_KE:g} elimination time constants (tmax x ln2/half_life) long: implausible absorption")
     if "source" in df.columns:
         df["source"] = df["source"].where(df["source"].notna(), df["_source_name"])
     if spec.key:

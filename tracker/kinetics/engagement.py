@@ -172,7 +172,8 @@ def _local_grid(params, length, n_steps, n_pilot=None):
     length = np.asarray(length, dtype=float)
     n = s0.shape[0]
     p = n_pilot or max(64, n_steps // 2)
-    f0 = np.clip(0.1 * s0 / length[:, None], 1e-15, 1e-3)
+    # no floor on the first fraction: deep flip-flop absorption spans tens of decades (tmax up to 50/ke)
+    f0 = np.clip(0.1 * s0 / length[:, None], 1e-300, 1e-3)
     frac = np.exp(np.log(f0) * np.linspace(1.0, 0.0, p)[None, :])
     sp = np.concatenate([np.zeros((n, 1)), frac * length[:, None]], axis=1)
     d = k_f - k_s

@@ -52,6 +52,10 @@ __all__ = [
 ]
 
 ROUTES = ("oral", "iv")
+#: largest tmax accepted, in elimination time constants (tmax x ke).  Deep flip-flop absorption
+#: (ka = ke e^-50 at the limit, already far outside pharmacology) is simulated to the stated
+#: tolerance up to here (tests/kinetics/test_engagement.py); beyond it the input is refused.
+MAX_TMAX_KE = 50.0
 _NEAR = 1e-5  # |ka-ke|/(ka+ke) below which the Bateman divided difference uses its derivative
 
 
@@ -96,8 +100,9 @@ def absorption_rate_from_tmax(tmax: npt.ArrayLike, ke: npt.ArrayLike) -> FloatAr
     if np.any(~np.isfinite(tmax)) or np.any(tmax <= 0):
         raise InputError("tmax must be positive and finite")
     T = tmax * ke
-    if np.any(T > 200):
-        raise InputError("tmax is implausibly long for this half-life (more than 200 elimination time constants)")
+    if np.any(T > MAX_TMAX_KE):
+        raise InputError(f"tmax is implausibly long for this half-life: more than {MAX_TMAX_KE:g} elimination time constants "
+                         f"(tmax x ln2/t½ > {MAX_TMAX_KE:g}; absorption would be over e^{MAX_TMAX_KE:g} times slower than elimination)")
     arg = -T * np.exp(-T)
     arg = np.maximum(arg, -np.exp(-1.0))
     w = np.where(T < 1, lambertw(arg, -1).real, lambertw(arg, 0).real)

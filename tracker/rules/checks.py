@@ -40,6 +40,7 @@ from ..kinetics.assay import apparent_affinity, assay_floor, min_incubation, res
 from .. import fmt as _fmt
 from ..fmt import conc as fmt_conc
 from ..fmt import duration as fmt_time
+from ..kinetics.pk import MAX_TMAX_KE
 from .engagement import ONSET_DOSES, REGIMEN_METRICS, duration_set_by, regimen_engagement
 
 __all__ = [
@@ -963,7 +964,8 @@ def check_duration_mismatch(frame: pd.DataFrame, *, default_engagement_threshold
     thr = np.where(np.isfinite(thr_prog), thr_prog, _col(default_engagement_threshold, n))
     has_kin = np.isfinite(koff) & (koff > 0)
     has_aff = np.isfinite(kon) & (kon > 0)
-    oral_ok = (route == "oral") & np.isfinite(tmax) & (tmax > 0)
+    with np.errstate(invalid="ignore", divide="ignore"):  # a tmax the simulation refuses counts as no usable PK
+        oral_ok = (route == "oral") & np.isfinite(tmax) & (tmax > 0) & ~(tmax * math.log(2) / hl > MAX_TMAX_KE)
     has_pk = np.isfinite(cmax) & (cmax > 0) & np.isfinite(hl) & (hl > 0) & (oral_ok | (route == "iv"))
     can = has_kin & has_aff & has_pk & has_limits
     records: list[dict] = []

@@ -181,33 +181,48 @@ class PKInput:
                    tmax=_f(row.get("tmax_s")), dosing_interval=tau)
 
 
-def engagement(kin: Kinetics, pk: PKInput, *, threshold: float = 0.3, n_doses: int = 1, max_points: int = 700) -> dict:
-    """Engagement time series for one compound under one PK profile (SI arrays; see engagement_timeseries)."""
-    from ..kinetics.engagement import engagement_timeseries
+def judged_engagement(kin: Kinetics, pk: PKInput, program: dict | None = None, *, config=None, series: bool = True,
+                      max_points: int = 700) -> dict:
+    """The engagement the ``duration-mismatch`` rule judges, for one compound under one PK profile.
+
+    Regimen, threshold and numbers come from
+    :func:`tracker.rules.engagement.compound_engagement` (the grader's own
+    function): one dose, or with a dosing interval (the program's, else the
+    PK study's) the regimen at steady state.  ``config``: the program's
+    :class:`~tracker.rules.config.RuleConfig` (default: the shipped defaults).
+    """
+    from ..rules.config import DEFAULTS
+    from ..rules.engagement import compound_engagement
 
     if not (kin.koff and kin.kon):
         raise KrtError("engagement needs koff and kon (or KD)")
-    tau = pk.dosing_interval if n_doses > 1 else None
-    tmax = pk.tmax if pk.route == "oral" else None
-    if pk.route == "oral" and tmax is None:
+    if pk.route == "oral" and pk.tmax is None:
         raise KrtError("oral PK needs tmax")
-    return engagement_timeseries(kin.kon, kin.koff, pk.route, pk.cmax, tmax, pk.half_life, tau, n_doses,
-                                 threshold=threshold, max_points=max_points)
+    cfg = config or DEFAULTS
+    pk_row = {"route": pk.route, "free_cmax_M": pk.cmax, "half_life_s": pk.half_life, "tmax_s": pk.tmax,
+              "dosing_interval_s": pk.dosing_interval}
+    return compound_engagement(kin.kon, kin.koff, pk_row, program or {}, default_threshold=cfg.default_engagement_threshold,
+                               bound_degradation_factor=cfg.bound_target_degradation_factor, series=series, max_points=max_points)
 
 
-def engagement_metrics(kin: Kinetics, pk: PKInput, *, threshold: float, n_doses: int = 1) -> dict[str, float | None]:
-    from ..kinetics.engagement import engagement_metrics as em
-
-    tau = pk.dosing_interval if n_doses > 1 else None
-    tmax = pk.tmax if pk.route == "oral" else None
-    m = em(kin.kon, kin.koff, pk.route, pk.cmax, tmax, pk.half_life, threshold, tau, n_doses)
-    return m.to_records()[0]
+def engagement(kin: Kinetics, pk: PKInput, *, program: dict | None = None, config=None, max_points: int = 700) -> dict:
+    """Engagement time series (SI arrays) of the judged regimen (see :func:`judged_engagement`)."""
+    return judged_engagement(kin, pk, program, config=config, max_points=max_points)["timeseries"]
 
 
-def engagement_chart(kin: Kinetics, pk: PKInput, program: dict, *, n_doses: int = 1) -> alt.Chart:
-    thr = _f(program.get("engagement_threshold")) or 0.5
-    ts = engagement(kin, pk, threshold=thr, n_doses=n_doses)
-    frame = charts.engagement_frame(ts)
+def engagement_metrics(kin: Kinetics, pk: PKInput, program: dict | None = None, *, config=None) -> dict[str, Any]:
+    """The judged numbers (NaN -> None) with ``regimen``, ``threshold`` and ``duration_set_by``."""
+    res = judged_engagement(kin, pk, program, config=config, series=False)
+    return {k: (None if isinstance(v, float) and not math.isfinite(v) else v) for k, v in res.items()}
+
+
+def engagement_chart(kin: Kinetics, pk: PKInput, program: dict, *, config=None, judged: dict | None = None) -> alt.Chart:
+    """The judged regimen against time: one dose, or a steady-state interval then the last dose and the washout.
+
+    ``judged``: a :func:`judged_engagement` result already at hand (not recomputed)."""
+    res = judged if judged is not None else judged_engagement(kin, pk, program, config=config)
+    thr = res["threshold"]
+    frame = charts.engagement_frame(res["timeseries"])
     h = lambda k: (_f(program.get(k)) / H) if _f(program.get(k)) else None  # noqa: E731
     return charts.engagement_chart(frame, threshold=thr, onset_max_h=h("onset_max_s"), offset_max_h=h("offset_max_s"),
                                    duration_min_h=h("duration_min_s"))
@@ -268,4 +283,4 @@ def fit_summary(res) -> dict[str, str]:
 
 
 __all__ = ["Kinetics", "best_kinetics", "potency_table", "affinity_chart", "PKInput", "pk_label", "engagement",
-           "engagement_metrics", "engagement_chart", "fit_charts", "fit_summary"]
+           "engagement_metrics", "engagement_chart", "judged_engagement", "fit_charts", "fit_summary"]

@@ -210,10 +210,11 @@ def _compound_section(engine: Engine, name: str, graded: dict[str, Any], with_ch
                               f"{name}: apparent affinity against incubation time"))
         if kin.koff and kin.kon and not info["pk"].empty:
             pk_in = evidence.PKInput.from_row(info["pk"].iloc[-1], program)
-            n_doses = 3 if pk_in.dosing_interval else 1
             try:
-                chart = evidence.engagement_chart(kin, pk_in, program, n_doses=n_doses).properties(width=620)
-                parts.append(f'<p class="meta">Engagement under PK: {_e(evidence.pk_label(info["pk"].iloc[-1]))}, {n_doses} dose(s)</p>')
+                judged = evidence.judged_engagement(kin, pk_in, program)
+                chart = evidence.engagement_chart(kin, pk_in, program, judged=judged).properties(width=620)
+                parts.append(f'<p class="meta">Engagement under PK: {_e(evidence.pk_label(info["pk"].iloc[-1]))}, '
+                             f'{_e(judged["regimen"])}</p>')
                 parts.append(_img(chart, f"{name}: target engagement against time"))
             except Exception as exc:  # a PK row the simulation refuses: say so, keep the pack
                 parts.append(f'<p class="meta">Engagement not simulated: {_e(" ".join(str(exc).split()))}</p>')

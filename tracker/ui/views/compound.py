@@ -154,10 +154,10 @@ def render() -> None:
                 st.markdown(f"**{k}:** {v}")
 
     st.subheader("Target engagement under PK")
-    _engagement(info, kin, program)
+    _engagement(info, kin, program, graded.get("findings") or [])
 
 
-def _engagement(info: dict, kin: evidence.Kinetics, program: dict) -> None:
+def _engagement(info: dict, kin: evidence.Kinetics, program: dict, findings: list | None = None) -> None:
     pk = info["pk"]
     if pk.empty:
         st.info("No PK profile on record: engagement under PK cannot be simulated.")
@@ -166,28 +166,39 @@ def _engagement(info: dict, kin: evidence.Kinetics, program: dict) -> None:
         st.info("No residence time (koff) measured: engagement cannot be simulated with binding kinetics.")
         return
     labels = [evidence.pk_label(r) for _, r in pk.iterrows()]
-    choice = st.selectbox("PK profile", range(len(labels)), format_func=lambda i: labels[i], key="ce_pk")
+    # start on the PK profile the duration-mismatch rule used, so the tiles show what the finding judged
+    used = [(f.get("data") or {}).get("pk_id") for f in (findings or []) if f.get("rule") == "duration-mismatch"]
+    ids = [int(v) if v == v else None for v in pk["id"]] if "id" in pk.columns else []
+    start = ids.index(int(used[0])) if used and used[0] is not None and int(used[0]) in ids else 0
+    choice = st.selectbox("PK profile", range(len(labels)), index=start, format_func=lambda i: labels[i], key="ce_pk")
     pk_in = evidence.PKInput.from_row(pk.iloc[choice], program)
-    n_doses = 1
-    if pk_in.dosing_interval:
-        n_doses = st.slider(f"Doses (every {widgets.dur(pk_in.dosing_interval)})", 1, 10, 3, key="ce_doses")
     try:
-        chart = evidence.engagement_chart(kin, pk_in, program, n_doses=n_doses)
-        thr = program.get("engagement_threshold") or 0.5
-        m = evidence.engagement_metrics(kin, pk_in, threshold=float(thr), n_doses=n_doses)
+        judged = evidence.judged_engagement(kin, pk_in, program)
+        chart = evidence.engagement_chart(kin, pk_in, program, judged=judged)
     except KrtError as exc:
         st.error(widgets.one_line(exc))
         return
+    m = {k: (None if isinstance(v, float) and v != v else v) for k, v in judged.items()}
+    steady = m["dosing_interval_s"] is not None
+    st.markdown(f"**Regimen judged:** {m['regimen']} · threshold {fmt.pct(m['threshold'])}"
+                + (" (default; the program sets none)" if m["threshold_is_default"] else ""))
     st.altair_chart(chart, width="stretch")
-    cols = st.columns(4)
-    cols[0].metric("Onset (threshold reached)", widgets.dur(m["onset_s"]),
-                   help=f"rapid-equilibrium curve: {widgets.dur(m['rapid_onset_s'])}")
-    cols[1].metric("Offset (last time above)", widgets.dur(m["offset_s"]),
-                   help=f"rapid-equilibrium curve: {widgets.dur(m['rapid_offset_s'])}")
-    cols[2].metric("Time above threshold", widgets.dur(m["duration_above_threshold_s"]))
-    cols[3].metric("Peak engagement", fmt.pct(m["peak_occupancy"], missing="–"))
-    st.caption(f"Kinetics: {kin.source}. Free drug, one binding site, no target turnover. "
-               "Simulations are decision support, not dosing advice.")
+    cols = st.columns(5 if steady else 4)
+    cols[0].metric("Onset (threshold reached)", widgets.dur(m["onset_s"]))
+    cols[1].metric("Offset (after the last dose)" if steady else "Offset (last time above)", widgets.dur(m["offset_s"]))
+    cols[2].metric("Time above threshold per interval" if steady else "Time above threshold",
+                   widgets.dur(m["duration_above_threshold_s"]))
+    cols[3].metric("Peak engagement (steady state)" if steady else "Peak engagement", fmt.pct(m["peak_occupancy"], missing="–"))
+    if steady:
+        cols[4].metric("Trough (steady state)", fmt.pct(m["trough_occupancy"], missing="–"))
+    if m["target_half_life_s"] is not None:
+        turnover = f"target turnover with t½ {widgets.dur(m['target_half_life_s'])}"
+        if m["duration_set_by"] == "turnover":
+            turnover += " (turnover, not dissociation, sets the duration)"
+    else:
+        turnover = "no target turnover (the program gives no target half-life)"
+    st.caption(f"Kinetics: {kin.source}. Free drug, one binding site, {turnover}. The same regimen and numbers as the "
+               "duration-mismatch rule. Simulations are decision support, not dosing advice.")
 
 
 if __name__ == "__main__":

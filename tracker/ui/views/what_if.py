@@ -214,9 +214,10 @@ def render() -> None:
         return
     pk_in = evidence.PKInput(route=s.pk_route, cmax=s.pk_cmax_M, half_life=s.pk_half_life_s, tmax=s.pk_tmax_s,
                              dosing_interval=s.pk_interval_s)
-    n_doses = 3 if s.pk_interval_s else 1
     try:
-        st.altair_chart(evidence.engagement_chart(kin, pk_in, program, n_doses=n_doses), width="stretch")
+        judged = evidence.judged_engagement(kin, pk_in, program)
+        st.caption(f"Regimen judged: {judged['regimen']}")
+        st.altair_chart(evidence.engagement_chart(kin, pk_in, program, judged=judged), width="stretch")
     except KrtError as exc:
         st.error(widgets.one_line(exc))
 
