@@ -147,3 +147,17 @@ def test_the_program_interval_wins_over_the_pk_study_and_labels_read_plainly():
     assert duration_set_by(1 / (10 * H), 20 * H) == "dissociation"
     assert duration_set_by(1 / (10 * H), 5 * H, 0.0) == "dissociation"  # bound target not degraded
     assert duration_set_by(1 / (10 * H), NAN) is None
+
+
+def test_the_evidence_module_summary_carries_the_judged_regimen_and_numbers():
+    # tracker.rules.evidence.engagement_summary (what the pages read) uses the duration check's inputs and function
+    from types import SimpleNamespace
+
+    from tracker.rules.evidence import engagement_summary
+
+    row = frame(7 * 24 * H, target_half_life_s=2 * H)
+    f = check_duration_mismatch(row).iloc[0]["data"]
+    s = engagement_summary(SimpleNamespace(duration=row), 7)
+    assert s["regimen"] == "steady state on a 24 h dosing interval" and s["duration_set_by"] == "turnover"
+    for k in ("trough_occupancy", "offset_s", "duration_above_threshold_s", "onset_s"):
+        assert s["metrics"][k] == pytest.approx(f[k], rel=1e-12), k

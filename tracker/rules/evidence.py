@@ -453,11 +453,14 @@ def engagement_summary(result, compound_id: int, *, n_doses: int | None = None, 
     """Engagement of one compound with exactly the inputs the grader's duration check used.
 
     Returns ``{kon, koff, route, cmax, tmax, half_life, threshold, threshold_is_default,
-    dosing_interval, n_doses, metrics: {...}, series: {...}}`` or None when the
-    compound lacks kinetics, affinity or PK.  The threshold is the program's,
-    else the rule configuration's default (as in the finding).
+    dosing_interval, n_doses, regimen, target_half_life, duration_set_by, metrics: {...}, series: {...}}``
+    or None when the compound lacks kinetics, affinity or PK.  The threshold is the program's,
+    else the rule configuration's default (as in the finding).  Regimen and numbers come from
+    :func:`tracker.rules.engagement.compound_engagement`, the duration check's own function:
+    one dose, or with a dosing interval the regimen at steady state (``n_doses`` is kept for
+    callers and ignored).
     """
-    from ..kinetics.engagement import engagement_metrics, engagement_timeseries
+    from .engagement import compound_engagement
 
     d = result.duration
     if d is None or d.empty:
@@ -484,10 +487,15 @@ def engagement_summary(result, compound_id: int, *, n_doses: int | None = None, 
         thr = 0.5
     tau = g("dosing_interval_s")
     tau = tau if math.isfinite(tau) and tau > 0 else None
-    doses = n_doses if n_doses is not None else (3 if tau else 1)
     tm = tmax if route == "oral" else None
-    m = engagement_metrics(kon, koff, route, cmax, tm, hl, thr, tau)  # the duration check's own call (one dose; trough at tau)
-    ts = engagement_timeseries(kon, koff, route, cmax, tm, hl, tau if doses > 1 else None, doses, threshold=thr, max_points=max_points)
+    fac = g("bound_target_degradation_factor")
+    ce = compound_engagement(kon, koff, {"route": route, "free_cmax_M": cmax, "half_life_s": hl, "tmax_s": tm, "dosing_interval_s": tau},
+                             {"engagement_threshold": thr_p, "dosing_interval_s": tau, "target_half_life_s": g("target_half_life_s")},
+                             default_threshold=thr, bound_degradation_factor=fac if math.isfinite(fac) else 1.0, max_points=max_points)
+    metrics = {k: (None if not math.isfinite(ce[k]) else ce[k]) for k in ("onset_s", "offset_s", "duration_above_threshold_s",
+                                                                         "peak_occupancy", "trough_occupancy")}
+    thl = ce["target_half_life_s"]
     return {"kon": kon, "koff": koff, "route": route, "cmax": cmax, "tmax": tm, "half_life": hl, "threshold": thr,
-            "threshold_is_default": not math.isfinite(thr_p), "dosing_interval": tau, "n_doses": doses,
-            "metrics": m.to_records()[0], "series": ts}
+            "threshold_is_default": not math.isfinite(thr_p), "dosing_interval": tau, "n_doses": None if tau else 1,
+            "regimen": ce["regimen"], "target_half_life": None if not math.isfinite(thl) else thl,
+            "duration_set_by": ce["duration_set_by"], "metrics": metrics, "series": ce["timeseries"]}

@@ -518,8 +518,9 @@ def grade_frames(portfolio: Portfolio, configs: Mapping[str, RuleConfig] | None 
     # ---- duration-mismatch
     dm = _duration_frame(comp, portfolio.programs, _duration_kinetics(kin, selection.runs, portfolio.programs, comp), portfolio.pk, rows)
     dm["default_engagement_threshold"] = _cfg(dm, table, "default_engagement_threshold")
+    dm["bound_target_degradation_factor"] = _cfg(dm, table, "bound_target_degradation_factor")
     found.append(check_duration_mismatch(dm, default_engagement_threshold=dm["default_engagement_threshold"].to_numpy(float),
-                                         bound_target_degradation_factor=_cfg(dm, table, "bound_target_degradation_factor")))
+                                         bound_target_degradation_factor=dm["bound_target_degradation_factor"].to_numpy(float)))
 
     # ---- combine
     found = [f for f in found if f is not None and not f.empty]
