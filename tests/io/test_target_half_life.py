@@ -51,7 +51,7 @@ def test_an_oral_tmax_beyond_fifty_elimination_time_constants_is_refused_at_impo
     from tracker.errors import KrtError
 
     files = dict(SAMPLE)
-    files["pk.csv"] = SAMPLE["pk.csv"].replace("BOR-001,dog,oral,90 min,12 nM,30 min", "BOR-001,dog,oral,90 min,12 nM,120 h")
+    files["pk.csv"] = SAMPLE["pk.csv"].replace("BKF-001,dog,oral,90 min,12 nM,30 min", "BKF-001,dog,oral,90 min,12 nM,120 h")
     folder = write_files(tmp_path / "bad", files)
     before = db_snapshot(migrated_engine)
     with pytest.raises(KrtError) as exc:
