@@ -69,13 +69,17 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, fields
+from typing import Any, Iterable
 
 import numpy as np
+import numpy.typing as npt
 
 from ..errors import InputError
 from .assay import find_root
 from .equations import LN2
 from .pk import Regimen
+
+FloatArray = npt.NDArray[np.float64]
 
 __all__ = ["EngagementMetrics", "engagement_metrics", "engagement_timeseries", "turnover_rates", "DEFAULT_STEPS"]
 
@@ -91,7 +95,7 @@ _SERIES_N = 10
 _SERIES_C = [np.array([1.0 / math.factorial(n + j + 1) * math.factorial(j) for n in range(_SERIES_N)]) for j in range(3)]
 
 
-def _psi012(z, e=None):
+def _psi012(z: Any, e: Any = None) -> Any:
     """psi_j(z) = int_0^1 x^j exp(-z (1-x)) dx, j = 0, 1, 2 (z >= 0); ``e`` = exp(-z) if known.
 
     psi_j(z) = j! sum_n (-z)^n/(n+j+1)! near 0, else psi_0 = (1 - e^-z)/z,
@@ -116,7 +120,7 @@ def _psi012(z, e=None):
     return p0, p1, p2
 
 
-def _step_coeffs(h, c0, cm, c1, d0, dm, d1, kon, koff):
+def _step_coeffs(h: Any, c0: Any, cm: Any, c1: Any, d0: Any, dm: Any, d1: Any, kon: Any, koff: Any) -> Any:
     """Clock increment and the quadratic (in clock time) of g = -KD C'/(kon (C+KD)^3) over each step."""
     kd = koff / kon
     k0 = koff + kon * c0
@@ -134,14 +138,14 @@ def _step_coeffs(h, c0, cm, c1, d0, dm, d1, kon, koff):
     return k0, km, k1, dsig, g0, a1, a2
 
 
-def _forcing(dsig, a0, a1, a2):
+def _forcing(dsig: Any, a0: Any, a1: Any, a2: Any) -> Any:
     """Exact contribution of the quadratic g over a step of clock length dsig (w0 = 0)."""
     p0, p1, p2 = _psi012(dsig)
     return dsig * (a0 * p0 + a1 * p1 + a2 * p2)
 
 
 # ----------------------------------------------------------------------------- grids
-def _grid_params(reg, kon, koff, thr):
+def _grid_params(reg: Any, kon: Any, koff: Any, thr: Any) -> Any:
     """Per-compound scales for the step-size monitor (see :func:`_local_grid`)."""
     kd = koff / kon
     c_thr = kd * thr / (1.0 - thr)
@@ -158,7 +162,7 @@ def _grid_params(reg, kon, koff, thr):
     return s0, k_s, k_f, s_ref, reg.oral
 
 
-def _local_grid(params, length, n_steps, n_pilot=None):
+def _local_grid(params: Any, length: Any, n_steps: Any, n_pilot: Any = None) -> Any:
     """Nodes (rows, n_steps+1) on [0, length] equidistributing a step-size monitor.
 
     Monitor r(s) = 1/(s + s0) + (k_s + k_f e^{-(k_f-k_s) s/4}) w(s): relative
@@ -192,7 +196,7 @@ def _local_grid(params, length, n_steps, n_pilot=None):
     return nodes
 
 
-def _tail_length(reg, kon, koff, thr, cpeak, m_last=None):
+def _tail_length(reg: Any, kon: Any, koff: Any, thr: Any, cpeak: Any, m_last: Any = None) -> Any:
     """Local time after the last dose (``m_last``; default the regimen's last) beyond which C no longer matters."""
     kd = koff / kon
     c_thr = kd * thr / (1.0 - thr)
@@ -232,7 +236,7 @@ class _Run:
     clock: np.ndarray  # (n,) integral of (kon C + koff) over the whole run
 
 
-def _solve(reg, kon, koff, thr, steps, *, steady_state=False, theta_start=None, washout=False):
+def _solve(reg: Any, kon: Any, koff: Any, thr: Any, steps: Any, *, steady_state: Any = False, theta_start: Any = None, washout: Any = False) -> Any:
     """Integrate theta over the regimen (or one steady-state interval) for all rows of ``reg``.
 
     ``washout=True``: the time after the last dose of a regimen at steady
@@ -278,7 +282,7 @@ def _solve(reg, kon, koff, thr, steps, *, steady_state=False, theta_start=None, 
             th_t[i + 1] += b_t[i]
         th = th_t.T
         theta0 = th[:, -1]
-        base = 0.0 if (steady_state or washout) else (np.where(np.isfinite(reg.tau), reg.tau, 0.0) * j)
+        base: Any = 0.0 if (steady_state or washout) else (np.where(np.isfinite(reg.tau), reg.tau, 0.0) * j)
         tg = sn + (base[:, None] if np.ndim(base) else base)
         if j > 0:  # boundary pseudo-step joining the previous interval's end to this start
             t_parts.append(tg[:, :1])
@@ -302,17 +306,17 @@ def _solve(reg, kon, koff, thr, steps, *, steady_state=False, theta_start=None, 
     )
 
 
-def _single_peak(reg):
+def _single_peak(reg: Any) -> Any:
     return np.where(reg.oral, _single_cmax(reg), reg.scale)
 
 
-def _accumulation(reg):
+def _accumulation(reg: Any) -> Any:
     """Steady-state accumulation bound 1/(1 - e^-k tau) with the slower PK rate (1 without an interval)."""
     tau = np.where(np.isfinite(reg.tau), reg.tau, np.inf)
     return 1.0 / -np.expm1(-np.minimum(reg.ke, np.where(reg.oral, reg.ka, reg.ke)) * tau)
 
 
-def _peak_conc_estimate(reg):
+def _peak_conc_estimate(reg: Any) -> Any:
     """Upper estimate of the highest concentration over the regimen."""
     if reg.n_doses == 1 or not np.all(np.isfinite(reg.tau)):
         return _single_peak(reg)
@@ -320,7 +324,7 @@ def _peak_conc_estimate(reg):
     return _single_peak(reg) * _accumulation(reg)
 
 
-def _single_cmax(reg):
+def _single_cmax(reg: Any) -> Any:
     c, _ = reg.local(0, reg.tmax)
     return c
 
@@ -329,7 +333,7 @@ def _single_cmax(reg):
 class _Steps:
     """Selected (row, step) pairs of a run, with everything needed inside the step."""
 
-    def __init__(self, run: _Run, rows, steps):
+    def __init__(self, run: _Run, rows: Any, steps: Any) -> None:
         self.run = run
         self.rows = rows
         self.m = run.m[steps]
@@ -349,7 +353,7 @@ class _Steps:
         )
         self.w0 = self.theta0 - c0 / (c0 + self.kd)
 
-    def conc(self, s, idx=None):
+    def conc(self, s: Any, idx: Any = None) -> Any:
         sel = slice(None) if idx is None else idx
         m = self.m[sel]
         rows = self.rows[sel]
@@ -362,7 +366,7 @@ class _Steps:
             d[k] = dk
         return c, d
 
-    def theta_at(self, x, idx):
+    def theta_at(self, x: Any, idx: Any) -> Any:
         """theta at fraction x of the step, for pairs idx."""
         h = self.h[idx]
         k0, km, k1 = self.k0[idx], self.km[idx], self.k1[idx]
@@ -374,14 +378,14 @@ class _Steps:
         return c / (c + self.kd[idx]) + w, w
 
 
-def _refine_level(run: _Run, rows, steps, level):
+def _refine_level(run: _Run, rows: Any, steps: Any, level: Any) -> Any:
     """Time where theta crosses ``level`` inside each selected step."""
     if rows.size == 0:
         return np.empty(0)
     st = _Steps(run, rows, steps)
     lev = np.broadcast_to(level, rows.shape)[...] if np.ndim(level) else np.full(rows.size, level)
 
-    def f(x, idx):
+    def f(x: Any, idx: Any) -> Any:
         th, _ = st.theta_at(x, idx)
         return th - lev[idx]
 
@@ -390,13 +394,13 @@ def _refine_level(run: _Run, rows, steps, level):
     return st.t0 + x * st.h
 
 
-def _refine_extremum(run: _Run, rows, steps, kind):
+def _refine_extremum(run: _Run, rows: Any, steps: Any, kind: Any) -> Any:
     """Value of theta's local max (kind=+1) or min (-1) inside each step: there w = 0."""
     if rows.size == 0:
         return np.empty(0), np.empty(0)
     st = _Steps(run, rows, steps)
 
-    def f(x, idx):
+    def f(x: Any, idx: Any) -> Any:
         _, w = st.theta_at(x, idx)
         return w
 
@@ -406,14 +410,14 @@ def _refine_extremum(run: _Run, rows, steps, kind):
     return th, st.t0 + x * st.h
 
 
-def _conc_level_time(run: _Run, rows, steps, c_level):
+def _conc_level_time(run: _Run, rows: Any, steps: Any, c_level: Any) -> Any:
     """Time where C crosses ``c_level`` inside the step (rapid-equilibrium crossings)."""
     if rows.size == 0:
         return np.empty(0)
     st = _Steps(run, rows, steps)
     lev = c_level
 
-    def f(x, idx):
+    def f(x: Any, idx: Any) -> Any:
         c, _ = st.conc(st.s0[idx] + x * st.h[idx], idx)
         return np.log(np.maximum(c, 1e-300)) - np.log(lev[idx])
 
@@ -423,7 +427,7 @@ def _conc_level_time(run: _Run, rows, steps, c_level):
 
 
 # ----------------------------------------------------------------------------- crossings
-def _crossings(values, level):
+def _crossings(values: Any, level: Any) -> Any:
     """Up- and down-crossing masks per step for node values (n, M+1) against level (n,)."""
     v0 = values[:, :-1] - level[:, None]
     v1 = values[:, 1:] - level[:, None]
@@ -432,17 +436,17 @@ def _crossings(values, level):
     return up, down
 
 
-def _first(mask):
+def _first(mask: Any) -> Any:
     has = mask.any(axis=1)
     return has, np.argmax(mask, axis=1)
 
 
-def _last(mask):
+def _last(mask: Any) -> Any:
     has = mask.any(axis=1)
     return has, mask.shape[1] - 1 - np.argmax(mask[:, ::-1], axis=1)
 
 
-def _theta_level_metrics(run: _Run, level):
+def _theta_level_metrics(run: _Run, level: Any) -> Any:
     """first up-crossing, last down-crossing and total time above ``level`` (tail included)."""
     n = run.kon.size
     up, down = _crossings(run.theta, level)
@@ -477,7 +481,7 @@ def _theta_level_metrics(run: _Run, level):
     return first, last, dur
 
 
-def _time_above(run: _Run, level):
+def _time_above(run: _Run, level: Any) -> Any:
     """Time above ``level`` within the run's grid (no tail); the run may start above the level."""
     n = run.kon.size
     up, down = _crossings(run.theta, level)
@@ -496,7 +500,7 @@ def _time_above(run: _Run, level):
     return dur
 
 
-def _rapid_metrics(run: _Run, thr):
+def _rapid_metrics(run: _Run, thr: Any) -> Any:
     """onset/offset of theta_rapid = C/(C+KD) against thr; jumps at iv doses handled."""
     n = run.kon.size
     kd = run.koff / run.kon
@@ -538,7 +542,7 @@ def _rapid_metrics(run: _Run, thr):
     return first, last, peak_c / (peak_c + kd)
 
 
-def _refine_conc_peak(run: _Run, ip, peak_c):
+def _refine_conc_peak(run: _Run, ip: Any, peak_c: Any) -> Any:
     n = run.kon.size
     rows_all = np.arange(n)
     out = peak_c.copy()
@@ -558,7 +562,7 @@ def _refine_conc_peak(run: _Run, ip, peak_c):
             continue
         sub = np.nonzero(has)[0]
 
-        def f(x, idx):
+        def f(x: Any, idx: Any) -> Any:
             _, d = st.conc(st.s0[sub[idx]] + x * st.h[sub[idx]], sub[idx])
             return d
 
@@ -568,7 +572,7 @@ def _refine_conc_peak(run: _Run, ip, peak_c):
     return out
 
 
-def _peak(run: _Run, kind=+1):
+def _peak(run: _Run, kind: Any = +1) -> Any:
     """Global max (kind=+1) or min (kind=-1) of theta with refinement, and its time."""
     th = run.theta
     n = th.shape[0]
@@ -623,15 +627,16 @@ class EngagementMetrics:
     def __getitem__(self, name: str) -> np.ndarray:
         if name not in self.keys():
             raise KeyError(name)
-        return getattr(self, name)
+        value: np.ndarray = getattr(self, name)
+        return value
 
     def keys(self) -> list[str]:
         return [f.name for f in fields(self)]
 
-    def to_dict(self) -> dict:
+    def to_dict(self) -> dict[str, Any]:
         return {k: getattr(self, k) for k in self.keys()}
 
-    def to_records(self) -> list[dict]:
+    def to_records(self) -> list[dict[str, float | None]]:
         """One dict per compound; NaN becomes None (JSON null)."""
         names = [f.name for f in fields(self)]
         cols = [np.atleast_1d(getattr(self, k)) for k in names]
@@ -641,7 +646,7 @@ class EngagementMetrics:
         ]
 
 
-def _prepare(kon, koff, route, cmax, tmax, half_life, threshold, dosing_interval):
+def _prepare(kon: Any, koff: Any, route: Any, cmax: Any, tmax: Any, half_life: Any, threshold: Any, dosing_interval: Any) -> Any:
     kon = np.asarray(kon, dtype=float)
     koff = np.asarray(koff, dtype=float)
     for name, a in (("kon", kon), ("koff", koff)):
@@ -661,20 +666,20 @@ def _prepare(kon, koff, route, cmax, tmax, half_life, threshold, dosing_interval
 
 
 def engagement_metrics(
-    kon,
-    koff,
-    route,
-    cmax,
-    tmax,
-    half_life,
-    threshold=0.3,
-    dosing_interval=None,
-    n_doses=1,
+    kon: Any,
+    koff: Any,
+    route: Any,
+    cmax: Any,
+    tmax: Any,
+    half_life: Any,
+    threshold: Any = 0.3,
+    dosing_interval: Any = None,
+    n_doses: Any = 1,
     *,
-    steps=DEFAULT_STEPS,
-    metrics=None,
-    target_half_life=None,
-    bound_degradation_factor=1.0,
+    steps: tuple[int, int] = DEFAULT_STEPS,
+    metrics: str | Iterable[str] | None = None,
+    target_half_life: npt.ArrayLike | None = None,
+    bound_degradation_factor: npt.ArrayLike = 1.0,
 ) -> EngagementMetrics:
     """Occupancy metrics under PK for arrays of compounds (SI units; see module docstring).
 
@@ -725,7 +730,8 @@ def engagement_metrics(
     return EngagementMetrics(**{k: v.reshape(shape) for k, v in out.items()})
 
 
-def turnover_rates(target_half_life, bound_degradation_factor=1.0, shape=None):
+def turnover_rates(target_half_life: npt.ArrayLike | None, bound_degradation_factor: npt.ArrayLike = 1.0,
+                   shape: tuple[int, ...] | None = None) -> tuple[FloatArray, FloatArray]:
     """(kdeg, factor) arrays: target degradation rate ln2/t1/2 (0 without turnover) and the bound-target factor.
 
     Target turnover (free target R, bound RL, both as fractions of the
@@ -752,7 +758,7 @@ def turnover_rates(target_half_life, bound_degradation_factor=1.0, shape=None):
     return kdeg, fac
 
 
-def _tau_or_none(tau_i):
+def _tau_or_none(tau_i: Any) -> Any:
     if np.all(np.isnan(tau_i)):
         return None
     if np.any(np.isnan(tau_i)):
@@ -763,7 +769,7 @@ def _tau_or_none(tau_i):
 _METRIC_NAMES = tuple(f.name for f in fields(EngagementMetrics))
 
 
-def _wanted(metrics) -> frozenset:
+def _wanted(metrics: Any) -> frozenset[str]:
     if metrics is None:
         return frozenset(_METRIC_NAMES)
     wanted = frozenset([metrics] if isinstance(metrics, str) else metrics)
@@ -776,7 +782,7 @@ def _wanted(metrics) -> frozenset:
 _STEADY = frozenset({"trough_occupancy", "steady_peak_occupancy", "steady_time_above_s", "steady_offset_s"})
 
 
-def _metrics_chunk(reg, kon, koff, thr, steps, wanted=frozenset(_METRIC_NAMES)):
+def _metrics_chunk(reg: Any, kon: Any, koff: Any, thr: Any, steps: Any, wanted: Any = frozenset(_METRIC_NAMES)) -> Any:
     n = kon.size
     nan = np.full(n, np.nan)
     out = {k: nan for k in _METRIC_NAMES}
@@ -800,7 +806,7 @@ def _metrics_chunk(reg, kon, koff, thr, steps, wanted=frozenset(_METRIC_NAMES)):
     return {k: (v if k in wanted else nan) for k, v in out.items()}
 
 
-def _steady_fixed_point(reg, kon, koff, thr, steps):
+def _steady_fixed_point(reg: Any, kon: Any, koff: Any, thr: Any, steps: Any) -> Any:
     """theta at each dose of the periodic steady state.
 
     The interval map theta -> a theta + b is affine (linear ODE); its fixed
@@ -810,7 +816,7 @@ def _steady_fixed_point(reg, kon, koff, thr, steps):
     return probe.theta[:, -1] / -np.expm1(-probe.clock)
 
 
-def _steady_metrics(reg, kon, koff, thr, steps, wanted):
+def _steady_metrics(reg: Any, kon: Any, koff: Any, thr: Any, steps: Any, wanted: Any) -> Any:
     """Trough, peak and time above threshold over one interval of the periodic steady state, and the
     offset after the last dose of a regimen at steady state (from that dose)."""
     n = kon.size
@@ -829,23 +835,23 @@ def _steady_metrics(reg, kon, koff, thr, steps, wanted):
 
 
 def engagement_timeseries(
-    kon,
-    koff,
-    route,
-    cmax,
-    tmax,
-    half_life,
-    dosing_interval=None,
-    n_doses=1,
+    kon: float,
+    koff: float,
+    route: str,
+    cmax: float,
+    tmax: float | None,
+    half_life: float,
+    dosing_interval: float | None = None,
+    n_doses: int = 1,
     *,
-    threshold=0.3,
-    t_end=None,
-    max_points=2000,
-    steps=(1200, 400),
-    steady_state=False,
-    target_half_life=None,
-    bound_degradation_factor=1.0,
-) -> dict:
+    threshold: float = 0.3,
+    t_end: float | None = None,
+    max_points: int = 2000,
+    steps: tuple[int, int] = (1200, 400),
+    steady_state: bool = False,
+    target_half_life: float | None = None,
+    bound_degradation_factor: float = 1.0,
+) -> dict[str, Any]:
     """Time series for one compound: ``t_s``, ``conc_M``, ``occupancy``, ``occupancy_rapid``.
 
     Points are the integration grid (thinned to ``max_points``), extended by
@@ -870,8 +876,9 @@ def engagement_timeseries(
     if kdeg[0] > 0 and fac[0] != 1.0:
         from .turnover import two_state_timeseries
 
-        return two_state_timeseries(kon_a, koff_a, route_a, cmax_a, tmax_a, hl_a, thr_a, tau_a, int(n_doses), kdeg, fac,
-                                    steady_state, t_end, max_points, steps)
+        series: dict[str, Any] = two_state_timeseries(kon_a, koff_a, route_a, cmax_a, tmax_a, hl_a, thr_a, tau_a,
+                                                      int(n_doses), kdeg, fac, steady_state, t_end, max_points, steps)
+        return series
     koff_a = koff_a + kdeg
     reg = Regimen.build(route_a, cmax_a, hl_a, np.where(route_a == "oral", tmax_a, np.nan), _tau_or_none(tau_a),
                         1 if steady_state else int(n_doses))

@@ -28,6 +28,7 @@ are not defined here (NaN).
 from __future__ import annotations
 
 import math
+from typing import Any
 
 import numpy as np
 
@@ -39,7 +40,7 @@ _G = math.sqrt(3.0) / 6.0  # Gauss points at 1/2 -+ sqrt(3)/6
 _M4 = math.sqrt(3.0) / 12.0
 
 
-def _expm2(a, b, c, d):
+def _expm2(a: Any, b: Any, c: Any, d: Any) -> Any:
     """exp of [[a, b], [c, d]] elementwise (arrays), closed form."""
     m = 0.5 * (a + d)
     p = 0.5 * (a - d)
@@ -62,7 +63,7 @@ def _expm2(a, b, c, d):
 class _TwoRun:
     """Nodes of a two-state run: t, r, b, theta, dtheta/dt (n, M+1), pseudo-step mask, end time."""
 
-    def __init__(self, t, r, b, conc, pseudo, kon, koff, kdeg, kb, pmat=None):
+    def __init__(self, t: Any, r: Any, b: Any, conc: Any, pseudo: Any, kon: Any, koff: Any, kdeg: Any, kb: Any, pmat: Any = None) -> None:
         self.t, self.r, self.b, self.conc, self.pseudo = t, r, b, conc, pseudo
         tot = r + b
         dr = kdeg[:, None] * (1 - r) - kon[:, None] * conc * r + koff[:, None] * b
@@ -75,7 +76,7 @@ class _TwoRun:
         self.pmat = pmat
 
 
-def _run(reg, kon, koff, kdeg, fac, thr, steps, *, mode="single", y_start=None):
+def _run(reg: Any, kon: Any, koff: Any, kdeg: Any, fac: Any, thr: Any, steps: Any, *, mode: Any = "single", y_start: Any = None) -> Any:
     from .engagement import _accumulation, _grid_params, _local_grid, _peak_conc_estimate, _single_peak, _tail_length
 
     n = kon.size
@@ -140,23 +141,23 @@ def _run(reg, kon, koff, kdeg, fac, thr, steps, *, mode="single", y_start=None):
 
 
 # ----------------------------------------------------------------------------- within-step (cubic Hermite)
-def _hermite(run, rows, steps):
+def _hermite(run: Any, rows: Any, steps: Any) -> Any:
     t0 = run.t[rows, steps]
     h = run.t[rows, steps + 1] - t0
     return t0, h, run.theta[rows, steps], run.theta[rows, steps + 1], run.dtheta[rows, steps] * h, run.dtheta[rows, steps + 1] * h
 
 
-def _cubic(x, y0, y1, m0, m1):
+def _cubic(x: Any, y0: Any, y1: Any, m0: Any, m1: Any) -> Any:
     x2, x3 = x * x, x * x * x
     return (2 * x3 - 3 * x2 + 1) * y0 + (x3 - 2 * x2 + x) * m0 + (-2 * x3 + 3 * x2) * y1 + (x3 - x2) * m1
 
 
-def _dcubic(x, y0, y1, m0, m1):
+def _dcubic(x: Any, y0: Any, y1: Any, m0: Any, m1: Any) -> Any:
     x2 = x * x
     return (6 * x2 - 6 * x) * y0 + (3 * x2 - 4 * x + 1) * m0 + (-6 * x2 + 6 * x) * y1 + (3 * x2 - 2 * x) * m1
 
 
-def _cross_times(run, rows, steps, level):
+def _cross_times(run: Any, rows: Any, steps: Any, level: Any) -> Any:
     if rows.size == 0:
         return np.empty(0)
     t0, h, y0, y1, m0, m1 = _hermite(run, rows, steps)
@@ -165,7 +166,7 @@ def _cross_times(run, rows, steps, level):
     return t0 + np.where(np.isfinite(x), x, 0.5) * h
 
 
-def _extreme(run, kind):
+def _extreme(run: Any, kind: Any) -> Any:
     th = run.theta
     n = th.shape[0]
     i = np.argmax(th, axis=1) if kind > 0 else np.argmin(th, axis=1)
@@ -191,7 +192,7 @@ def _extreme(run, kind):
     return val
 
 
-def _tail_theta(run, rows, s):
+def _tail_theta(run: Any, rows: Any, s: Any) -> Any:
     """theta at time s after the grid end (C = 0: closed-form free decay)."""
     kdeg, kb, koff = run.kdeg[rows], run.kb[rows], run.koff[rows]
     re, be = run.r[rows, -1], run.b[rows, -1]
@@ -204,7 +205,7 @@ def _tail_theta(run, rows, s):
     return b / (r + b)
 
 
-def _level_metrics(run, level, *, start_above_counts=False):
+def _level_metrics(run: Any, level: Any, *, start_above_counts: Any = False) -> Any:
     """first up-crossing, last down-crossing and time above ``level`` (with the closed-form tail)."""
     n = run.theta.shape[0]
     v = run.theta - level[:, None]
@@ -243,7 +244,7 @@ def _level_metrics(run, level, *, start_above_counts=False):
     return first, last, dur
 
 
-def _metrics(reg, kon, koff, kdeg, fac, thr, steps, wanted):
+def _metrics(reg: Any, kon: Any, koff: Any, kdeg: Any, fac: Any, thr: Any, steps: Any, wanted: Any) -> Any:
     """Two-state engagement metrics for one chunk (keys as EngagementMetrics)."""
     n = kon.size
     steps = (2 * steps[0], 2 * steps[1])  # Hermite refinement: a finer grid than the one-state integrator
@@ -273,7 +274,7 @@ def _metrics(reg, kon, koff, kdeg, fac, thr, steps, wanted):
     return out
 
 
-def _level_metrics_no_tail(run, level):
+def _level_metrics_no_tail(run: Any, level: Any) -> Any:
     v = run.theta - level[:, None]
     up = (v[:, :-1] < 0) & (v[:, 1:] >= 0)
     down = (v[:, :-1] >= 0) & (v[:, 1:] < 0)
@@ -287,7 +288,7 @@ def _level_metrics_no_tail(run, level):
     return dur
 
 
-def steady_fixed_point(reg, kon, koff, kdeg, fac, thr, steps):
+def steady_fixed_point(reg: Any, kon: Any, koff: Any, kdeg: Any, fac: Any, thr: Any, steps: Any) -> Any:
     """(R, RL) at each dose of the periodic steady state: the fixed point of y -> P y + q."""
     n = kon.size
     probe = _run(reg, kon, koff, kdeg, fac, thr, steps, mode="steady", y_start=(np.zeros(n), np.zeros(n)))
@@ -298,7 +299,7 @@ def steady_fixed_point(reg, kon, koff, kdeg, fac, thr, steps):
     return (d * q1 - b * q2) / det, (-c * q1 + a * q2) / det
 
 
-def two_state_metrics(kon, koff, route, cmax, tmax, hl, thr, tau, n_doses, kdeg, fac, steps, wanted, names):
+def two_state_metrics(kon: Any, koff: Any, route: Any, cmax: Any, tmax: Any, hl: Any, thr: Any, tau: Any, n_doses: Any, kdeg: Any, fac: Any, steps: Any, wanted: Any, names: Any) -> Any:
     """engagement_metrics for rows with turnover and a bound-target factor != 1 (arrays, SI)."""
     from .engagement import _tau_or_none
 
@@ -327,7 +328,7 @@ def two_state_metrics(kon, koff, route, cmax, tmax, hl, thr, tau, n_doses, kdeg,
     return out
 
 
-def two_state_timeseries(kon, koff, route, cmax, tmax, hl, thr, tau, n_doses, kdeg, fac, steady_state, t_end, max_points, steps):
+def two_state_timeseries(kon: Any, koff: Any, route: Any, cmax: Any, tmax: Any, hl: Any, thr: Any, tau: Any, n_doses: Any, kdeg: Any, fac: Any, steady_state: Any, t_end: Any, max_points: Any, steps: Any) -> Any:
     """Time series (one compound) of the two-state model: t_s, conc_M, occupancy, occupancy_rapid (frozen equilibrium)."""
     from .engagement import _tau_or_none
 
