@@ -206,3 +206,14 @@ def test_the_steps_cover_every_revision_from_the_first_to_head():
     steps = _steps()
     assert steps[0] == (revs[0], migrate.head())
     assert set(zip(revs, revs[1:])) <= set(steps)  # every consecutive pair (with two revisions it is first -> head)
+
+
+def test_kinetic_measurements_filled_before_supersession_existed_are_not_superseded(engine):
+    """0003_fit_supersede adds three nullable columns: every older measurement stays current (graded)."""
+    migrate.upgrade(engine, "0002_target_turnover")
+    with migrate.migration_connection(engine) as conn:
+        _fill(conn)
+    migrate.upgrade(engine, "0003_fit_supersede")
+    with engine.connect() as conn:
+        rows = conn.execute(text("SELECT superseded_by_id, superseded_reason, superseded_at FROM kinetic_measurements")).all()
+    assert len(rows) == ROWS and all(r == (None, None, None) for r in rows)

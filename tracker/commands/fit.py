@@ -85,7 +85,13 @@ def register(subparsers) -> None:
     p.add_argument("--kapp", metavar="Q", help="apparent Ki under assay conditions (jump-dilution correction)")
     p.add_argument("--control-label", metavar="LABEL", help="curve label of the control trace (default 'control')")
     p.add_argument("--json", action="store_true", help="print the result as JSON (SI units)")
-    p.add_argument("--save", metavar="COMPOUND", help="store the fit and its raw data for COMPOUND")
+    p.add_argument("--save", metavar="COMPOUND", help="store the fit and its raw data for COMPOUND (a scientist or lead; "
+                   "refused when the residence time is more than 3x from one already stored)")
+    p.add_argument("--supersede", metavar="REASON",
+                   help="with --save: store even when a stored residence time differs more than 3x, marking the older "
+                   "value superseded (kept on record) and auditing REASON")
+    p.add_argument("--by", metavar="USER", default=None,
+                   help="with --save: the user saving (default: $KRT_USER or login name)")
     p.set_defaults(func=run)
 
 
@@ -130,32 +136,64 @@ def _load(args):
 def run(args) -> int:
     from ..services.fits import fit_time_course
 
-    save_fit = None
-    if args.save:
-        try:
-            from ..services.fits import save_fit  # noqa: F811  (wired by the database layer)
-        except ImportError as exc:
-            detail = "" if getattr(exc, "name", None) == "tracker.services.fits" else f" ({exc})"
-            raise KrtError(f"saving fits needs the database layer{detail}") from None
+    if args.supersede is not None and not args.save:
+        raise KrtError("--supersede goes with --save COMPOUND")
+    if args.by is not None and not args.save:
+        raise KrtError("--by goes with --save COMPOUND")
     opts = _options(args)
     df = _load(args)
     result = fit_time_course(args.method, df, source=args.file, **opts)
     saved = None
-    if save_fit is not None:
-        raw_options = {k: getattr(args, k) for k in _OPTIONS if getattr(args, k, None) is not None}
-        saved = save_fit(args.save, result, df, args.file,
-                         units=df.attrs.get("units", {}), options=raw_options)
+    if args.save:
+        saved = _save(args, result, df)
     if args.json:
         out = result.to_json_keys()
         if saved is not None:
-            out["saved"] = {"compound": args.save, **(saved if isinstance(saved, dict) else {})}
+            out["saved"] = saved
         print(json.dumps(out, indent=2, allow_nan=False, default=str))
     else:
         print(format_report(result, args.file))
         if saved is not None:
-            detail = ", ".join(f"{k.replace('_', ' ')} {v}" for k, v in saved.items()) if isinstance(saved, dict) else ""
-            print(f"  saved for {args.save}" + (f" ({detail})" if detail else ""))
+            print(format_saved(saved))
     return 0
+
+
+def _save(args, result, df) -> dict:
+    from ..db import migrate
+    from ..db.session import database_errors, open_engine
+    from ..services.fits import default_actor, save_fit
+
+    raw_options = {k: getattr(args, k) for k in _OPTIONS if getattr(args, k, None) is not None}
+    engine = open_engine()
+    try:
+        with database_errors("saving the fit failed"):
+            migrate.require_current(engine)
+            return save_fit(args.save, result, df, args.file, engine=engine, actor=args.by or default_actor(),
+                            units=df.attrs.get("units", {}), options=raw_options, supersede=args.supersede)
+    finally:
+        engine.dispose()
+
+
+def format_saved(saved: dict) -> str:
+    """What a save stored, in units (one or a few lines)."""
+    who = saved["compound"]
+    if not saved.get("created"):
+        return f"  already stored for {who} (time course {saved['time_course_id']}); nothing new was written"
+    st = saved.get("stored") or {}
+    if st.get("koff_per_s"):
+        parts = [f"residence time {fmt_time(st.get('residence_time_s'))}", f"koff {fmt_rate1(st['koff_per_s'])}"]
+        if st.get("kon_per_M_per_s"):
+            parts.append(f"kon {fmt_rate2(st['kon_per_M_per_s'])}")
+        if st.get("kd_M"):
+            parts.append(f"KD {fmt_conc(st['kd_M'])}")
+        text = (f"  saved for {who}: {', '.join(parts)} (kinetic measurement {saved['kinetic_measurement_id']}, "
+                f"raw data as time course {saved['time_course_id']})")
+    else:
+        text = f"  saved for {who}: the fit and its raw data (time course {saved['time_course_id']})"
+    for old in saved.get("superseded") or []:
+        text += (f"\n  superseded for {who}: kinetic measurement {old['id']} (residence time "
+                 f"{fmt_time(old['residence_time_s'])}), kept on record")
+    return text
 
 
 # ---------------------------------------------------------------- report

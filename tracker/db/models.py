@@ -235,7 +235,11 @@ class TimeCourse(Base):
 
 
 class KineticMeasurement(Base):
-    """kon, koff (given as koff or as residence time, see ``koff_given_as``), KD and 95% bounds."""
+    """kon, koff (given as koff or as residence time, see ``koff_given_as``), KD and 95% bounds.
+
+    ``superseded_by_id`` marks a value replaced by a newer one with a stated reason (see
+    :func:`tracker.services.fits.save_fit`); superseded rows stay on record and are not graded.
+    """
 
     __tablename__ = "kinetic_measurements"
     __table_args__ = (
@@ -268,6 +272,10 @@ class KineticMeasurement(Base):
     source: Mapped[str | None] = mapped_column(String(300))
     content_hash: Mapped[str] = mapped_column(String(64))
     created_at: Mapped[dt.datetime] = mapped_column(UTCDateTime, default=utcnow)
+    # a newer measurement that replaced this one (the older value stays on record; the grader skips it)
+    superseded_by_id: Mapped[int | None] = mapped_column(ForeignKey("kinetic_measurements.id"))
+    superseded_reason: Mapped[str | None] = mapped_column(Text)
+    superseded_at: Mapped[dt.datetime | None] = mapped_column(UTCDateTime)
 
 
 class PKProfile(Base):

@@ -9,10 +9,18 @@ A saved fit becomes
   koff, KD and their 95% bounds, linked to the time course;
 * one audit event per row written.
 
-Ki-shift and insurmountability fits carry qualitative evidence (a ratio, a
-fraction of Emax), not a rate constant, so they are stored as time courses
-only; the rules read them from there (``meta.fit_method``, ``meta.fit``).
+Ki-shift, insurmountability and Morrison fits carry evidence other than a
+rate constant (a ratio, a fraction of Emax, a Ki), so they are stored as time
+courses only; the rules read them from there (``meta.fit_method``, ``meta.fit``).
 Saving the same data again for the same compound adds nothing.
+
+Guards (shared by the CLI and the dashboard, enforced here): only an active
+``scientist`` or ``lead`` may save; a residence time that differs more than
+:data:`SUPERSEDE_FACTOR` x from one already stored (and not superseded) for
+the compound is refused - the classic sign of a unit slip - unless a reason is
+given.  With a reason the new value is stored and each conflicting older one
+stays on record, marked superseded (``superseded_by_id``, reason, time) and
+audited with that reason; the grader then reads the new value.
 """
 
 from __future__ import annotations
@@ -26,13 +34,24 @@ from pathlib import Path
 from typing import Any
 
 import pandas as pd
-from sqlalchemy import Engine, insert, select
+from sqlalchemy import Engine, insert, select, update
 
 from ..db.audit import append_event, canonical_json
-from ..db.models import Compound, KineticMeasurement, TimeCourse
+from ..db.models import Compound, KineticMeasurement, TimeCourse, utcnow
 from ..db.session import open_engine, with_retry
 from ..db.uow import UnitOfWork
-from ..errors import FitError, NotFoundError
+from ..errors import FitError, InputError, KrtError, NotFoundError
+from ..fmt import duration as fmt_duration
+from .users import require_role
+
+#: a stored residence time this many times longer or shorter than the new one needs a reason to be superseded
+SUPERSEDE_FACTOR = 3.0
+#: roles that may save fits
+SAVE_ROLES = ("scientist", "lead")
+
+
+class ResidenceTimeConflict(KrtError, ValueError):
+    """A fit whose residence time differs more than SUPERSEDE_FACTOR x from a stored one, without a reason."""
 
 #: fit method -> the stored measurement method (tracker.domain.METHODS)
 STORED_METHOD = {
@@ -43,8 +62,9 @@ STORED_METHOD = {
     "washout-recovery": "washout-recovery",
     "ki-shift": "other",
     "insurmountability": "other",
+    "morrison": "other",
 }
-QUALITATIVE = ("ki-shift", "insurmountability")
+QUALITATIVE = ("ki-shift", "insurmountability", "morrison")
 
 
 def fit_time_course(method: str, df: pd.DataFrame, *, source: str = "", **options: Any):
@@ -98,6 +118,36 @@ def _pair(ci: Any) -> tuple[float | None, float | None]:
     return _finite(ci[0]), _finite(ci[1])
 
 
+def _conflicts(session, cid: int, koff: float) -> list[dict[str, Any]]:
+    """Stored, not superseded measurements of the compound whose residence time is > SUPERSEDE_FACTOR x off."""
+    rows = session.execute(
+        select(KineticMeasurement.id, KineticMeasurement.koff_per_s, KineticMeasurement.source, KineticMeasurement.method)
+        .where(KineticMeasurement.compound_id == cid, KineticMeasurement.superseded_by_id.is_(None))
+        .order_by(KineticMeasurement.id)
+    ).all()
+    out = []
+    for r in rows:
+        old = _finite(r.koff_per_s)
+        if old is None:
+            continue
+        ratio = old / koff  # = new RT / old RT
+        if ratio > SUPERSEDE_FACTOR or ratio < 1 / SUPERSEDE_FACTOR:
+            out.append({"id": r.id, "koff_per_s": old, "residence_time_s": 1 / old, "source": r.source,
+                        "method": r.method, "ratio": ratio})
+    return out
+
+
+def _conflict_message(compound: str, rt_new: float, c: dict[str, Any], n: int) -> str:
+    ratio = c["ratio"]
+    how = f"{ratio:.3g}x longer" if ratio > 1 else f"{1 / ratio:.3g}x shorter"
+    more = f" (and {n - 1} more stored value(s))" if n > 1 else ""
+    src = f", from {c['source']}" if c.get("source") else ""
+    return (f"{compound} already has a residence time of {fmt_duration(c['residence_time_s'])} (kinetic measurement "
+            f"{c['id']}{src}){more}; this fit gives {fmt_duration(rt_new)}, {how}, more than {SUPERSEDE_FACTOR:g}x "
+            f"apart. Check the time and concentration units; to store it anyway and mark the older value superseded, "
+            f"give a reason (--supersede \"REASON\")")
+
+
 def save_fit(
     compound: str,
     result,
@@ -108,13 +158,21 @@ def save_fit(
     actor: str | None = None,
     units: dict[str, str] | None = None,
     options: dict[str, Any] | None = None,
+    supersede: str | None = None,
 ) -> dict[str, Any]:
-    """Store ``result`` (a :class:`~tracker.kinetics.fitting.FitResult`) and its raw data for ``compound``.
+    """Store ``result`` (a fit result) and its raw data for ``compound``, guarded (see the module docstring).
 
-    Returns ``{"time_course_id", "kinetic_measurement_id", "created"}``.
+    Returns ``{"compound", "time_course_id", "kinetic_measurement_id", "created", "stored", "superseded"}``:
+    ``stored`` holds the SI values written (``koff_per_s``, ``residence_time_s``, ``kon_per_M_per_s``,
+    ``kd_M``; empty for qualitative fits), ``superseded`` the older measurements marked superseded
+    (``id``, ``residence_time_s``).  Raises :class:`ResidenceTimeConflict`, :class:`~tracker.errors.PermissionDenied`,
+    :class:`~tracker.errors.NotFoundError`.
     """
     engine = engine or open_engine()
     actor = actor or default_actor()
+    reason = " ".join(str(supersede).split()) if supersede is not None else None
+    if supersede is not None and not reason:
+        raise InputError("--supersede needs a reason (why the older value is replaced)")
     keys = result.to_json_keys()
     fit_dict = result.to_dict()
     method = keys.get("method") or result.method
@@ -126,10 +184,15 @@ def save_fit(
     koff = _finite(keys.get("koff_per_s"))
     if method not in QUALITATIVE and koff is None:
         raise FitError(f"{Path(source).name}: the {method} fit gives no koff to store (give --koff or more concentrations)")
+    kon = _finite(keys.get("kon_per_M_per_s"))
+    kd = _finite(keys.get("kd_M"))
+    stored = {} if method in QUALITATIVE else {"koff_per_s": koff, "residence_time_s": 1 / koff if koff else None,
+                                               "kon_per_M_per_s": kon, "kd_M": kd}
 
     def work() -> dict[str, Any]:
         with UnitOfWork(engine) as uow:
             s = uow.session
+            user = require_role(s, actor, SAVE_ROLES, "save fits")["name"]
             cid = s.execute(select(Compound.id).where(Compound.name == compound)).scalar()
             if cid is None:
                 raise NotFoundError(f"unknown compound {compound!r}: import it before saving fits for it")
@@ -137,19 +200,22 @@ def save_fit(
                                                           TimeCourse.content_hash == digest)).scalar()
             if tc_id is not None:
                 km_id = s.execute(select(KineticMeasurement.id).where(KineticMeasurement.time_course_id == tc_id)).scalar()
-                return {"time_course_id": tc_id, "kinetic_measurement_id": km_id, "created": False}
+                return {"compound": compound, "time_course_id": tc_id, "kinetic_measurement_id": km_id, "created": False,
+                        "stored": stored, "superseded": []}
+            conflicts = _conflicts(s, cid, koff) if koff is not None and method not in QUALITATIVE else []
+            if conflicts and reason is None:
+                raise ResidenceTimeConflict(_conflict_message(compound, 1 / koff, conflicts[0], len(conflicts)))
             tc_id = s.execute(insert(TimeCourse).values(
-                compound_id=cid, method=STORED_METHOD[method], data_json=data_json,
+                compound_id=cid, method=STORED_METHOD.get(method, "other"), data_json=data_json,
                 meta_json=json.dumps(meta, allow_nan=False, default=str), content_hash=digest,
             ).returning(TimeCourse.id)).scalar_one()
-            append_event(s, actor, "save-fit", "time_course", tc_id, None,
+            append_event(s, user, "save-fit", "time_course", tc_id, None,
                          {"compound": compound, "fit_method": method, "source": meta["source"],
                           "n_points": keys.get("n_points"), "warnings": [w["code"] for w in keys.get("warnings", [])]},
-                         "fit saved with its raw data")
+                         reason or "fit saved with its raw data")
             km_id = None
             if koff is not None and method not in QUALITATIVE:
-                kon = _finite(keys.get("kon_per_M_per_s"))
-                kd = _finite(keys.get("kd_M"))  # texts at full precision (repr), so an export reads back the same float
+                # texts at full precision (repr), so an export reads back the same float
                 kon_lo, kon_hi = _pair(keys.get("kon_ci95_per_M_per_s"))
                 koff_lo, koff_hi = _pair(keys.get("koff_ci95_per_s"))
                 row = dict(
@@ -167,10 +233,20 @@ def save_fit(
                     source=meta["source"], content_hash=digest,
                 )
                 km_id = s.execute(insert(KineticMeasurement).values(**row).returning(KineticMeasurement.id)).scalar_one()
-                append_event(s, actor, "create", "kinetic_measurement", km_id, None,
+                append_event(s, user, "create", "kinetic_measurement", km_id, None,
                              {"compound": compound, "method": row["method"], "koff_per_s": koff, "kon_per_M_s": kon,
-                              "time_course_id": tc_id}, "from a saved fit")
+                              "time_course_id": tc_id}, reason or "from a saved fit")
+                now = utcnow()
+                for c in conflicts:
+                    s.execute(update(KineticMeasurement).where(KineticMeasurement.id == c["id"])
+                              .values(superseded_by_id=km_id, superseded_reason=reason, superseded_at=now))
+                    append_event(s, user, "supersede", "kinetic_measurement", c["id"],
+                                 {"superseded_by_id": None, "koff_per_s": c["koff_per_s"]},
+                                 {"superseded_by_id": km_id, "new_koff_per_s": koff,
+                                  "residence_time_ratio": c["ratio"]}, reason)
             uow.commit()
-            return {"time_course_id": tc_id, "kinetic_measurement_id": km_id, "created": True}
+            return {"compound": compound, "time_course_id": tc_id, "kinetic_measurement_id": km_id, "created": True,
+                    "stored": stored, "superseded": [{"id": c["id"], "residence_time_s": c["residence_time_s"]}
+                                                     for c in conflicts]}
 
     return with_retry(work)

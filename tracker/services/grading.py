@@ -115,6 +115,8 @@ def load_portfolio(bind, program: str | None = None, compounds: Iterable[str] | 
 
         def measured(cols, model):
             stmt = select(*cols).order_by(model.id)
+            if model is KineticMeasurement:  # a superseded value stays on record but is no longer evidence
+                stmt = stmt.where(KineticMeasurement.superseded_by_id.is_(None))
             if names is not None:
                 stmt = stmt.where(model.compound_id.in_(select(Compound.id).where(Compound.name.in_(names))))
             elif program is not None:

@@ -158,7 +158,7 @@ def _summary_select(flt: SummaryFilter):
                 partition_by=KineticMeasurement.compound_id,
                 order_by=(KineticMeasurement.measured_on.desc().nulls_last(), KineticMeasurement.id.desc()),
             ).label("rk"),
-        )
+        ).where(KineticMeasurement.superseded_by_id.is_(None))  # superseded values stay on record, not in the view
     ).subquery("kin")
     pk = (
         select(
