@@ -124,19 +124,12 @@ def test_a_one_sheet_workbook_is_read_like_a_csv(tmp_path):
 
 
 # ------------------------------------------------------------------ replicates
-def test_replicates_become_joint_curves_but_controls_pool(tmp_path):
-    rows = [(t, 1, "control", r) for r in ("r1", "r2") for t in (0, 1, 2)]
-    rows += [(t, 1, "cpd", r) for r in ("r1", "r2") for t in (0, 1, 2)]
-    path = write(tmp_path / "wo.csv", csv_text("time (h),signal,curve,replicate", rows))
-    df = read_time_course(path, "washout-recovery")
-    assert sorted(set(df["curve"])) == ["control", "cpd · r1", "cpd · r2"]
-    assert "replicate" not in df
-
-
-def test_a_replicate_column_alone_names_the_curves(tmp_path):
-    rows = [(t, 1, r) for r in ("1", "2") for t in (0, 1, 2)]
-    df = read_time_course(write(tmp_path / "d.csv", csv_text("time (h),signal,replicate", rows)), "dissociation")
-    assert sorted(set(df["curve"])) == ["1", "2"]
+def test_replicate_labels_are_passed_on_to_the_fit(tmp_path):
+    rows = [(t, 1, "cpd", r) for r in ("r1", "r2") for t in (0, 1, 2)]
+    df = read_time_course(write(tmp_path / "wo.csv", csv_text("time (h),signal,curve,replicate", rows)), "washout-recovery")
+    assert df["replicate"].tolist() == ["r1"] * 3 + ["r2"] * 3 and set(df["curve"]) == {"cpd"}
+    with pytest.raises(InputError, match=r"wo2\.csv:3: replicate: empty cell"):
+        read_time_course(write(tmp_path / "wo2.csv", "time (h),signal,curve,replicate\n0,1,a,r1\n1,1,a,\n"), "washout-recovery")
 
 
 def test_dissociation_replicates_share_koff_from_the_command_line(tmp_path, capsys):
@@ -174,9 +167,10 @@ def test_a_plate_layout_with_a_well_map_melts_into_curves(tmp_path):
     data, mp = plate(tmp_path, np.random.default_rng(1))
     df = read_time_course(data, "association", well_map=mp)
     assert df.attrs["layout"] == "wide" and len(df) == 8 * 21
-    assert sorted(set(df["curve"]))[:2] == ["L1 · A1", "L1 · A2"]
+    assert sorted(set(df["curve"])) == ["L1", "L10", "L3", "L30"]
+    assert sorted(set(df.loc[df["curve"] == "L3", "replicate"])) == ["B1", "B2"]  # wells sharing a curve: replicates
     assert sorted(set(df["concentration"])) == pytest.approx([1e-9, 3e-9, 1e-8, 3e-8])
-    assert df.loc[df["curve"] == "L3 · B2", "line"].tolist() == list(range(2, 23))
+    assert df.loc[df["replicate"] == "B2", "line"].tolist() == list(range(2, 23))
 
 
 def test_a_plate_association_is_fitted_jointly_from_the_command_line(tmp_path, capsys):

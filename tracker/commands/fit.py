@@ -16,27 +16,13 @@ import json
 import math
 
 from ..domain import FIT_METHODS as METHODS
-from ..errors import FitError, KrtError, UnitError
+from ..errors import KrtError
 from ..fmt import conc as fmt_conc
 from ..fmt import duration as fmt_time
 from ..fmt import pct as fmt_pct
 from ..fmt import rate1 as fmt_rate1
 from ..fmt import rate2 as fmt_rate2
 from ..io.timecourse import CONC_UNITS, TIME_UNITS
-from ..units import parse_quantity
-
-# which options each method accepts (dest names)
-_OPTIONS = {
-    "tracer_kon": ("competition-kinetics",),
-    "tracer_koff": ("competition-kinetics",),
-    "tracer_conc": ("competition-kinetics", "ki-shift"),
-    "tracer_kd": ("ki-shift",),
-    "koff": ("association",),
-    "post_dilution_conc": ("jump-dilution",),
-    "kapp": ("jump-dilution",),
-    "control_label": ("jump-dilution", "washout-recovery", "insurmountability"),
-}
-
 
 # ---------------------------------------------------------------- command
 _EPILOG = """CSV columns (comma-separated, header names case-insensitive). Units are required: in the header,
@@ -50,6 +36,7 @@ _EPILOG = """CSV columns (comma-separated, header names case-insensitive). Units
   washout-recovery      time, signal, curve               curve 'control' = untreated
   ki-shift              concentration, signal, incubation (or curve labels such as '30 min', '4 h')
   insurmountability     concentration (agonist), signal, curve   curve 'control' = agonist alone
+  morrison              concentration (inhibitor), signal (enzyme activity); needs --enzyme-conc
 Replicates: a 'replicate' column (with or without 'curve'); time-course replicates are fitted jointly
 as curves that share the rate constants, each with its own amplitude and baseline.
 Plate layout: a time column and one column per well (A1, B12 ...), with --well-map FILE, a CSV with
@@ -76,14 +63,17 @@ def register(subparsers) -> None:
                    help="unit of concentration columns whose header names none (no default: a unit is required)")
     p.add_argument("--well-map", metavar="FILE",
                    help="plate layout: CSV with columns well, concentration, curve for a file of one column per well")
-    p.add_argument("--tracer-kon", metavar="Q", help="tracer kon, e.g. '3e6 /M/s' (competition-kinetics)")
-    p.add_argument("--tracer-koff", metavar="Q", help="tracer koff, e.g. '0.01 /s' (competition-kinetics)")
-    p.add_argument("--tracer-conc", metavar="Q", help="tracer concentration, e.g. '1 nM' (competition-kinetics, ki-shift)")
-    p.add_argument("--tracer-kd", metavar="Q", help="tracer KD for Cheng-Prusoff, e.g. '2 nM' (ki-shift)")
-    p.add_argument("--koff", metavar="Q", help="known koff, e.g. '1e-3 /s' (association at one concentration gives kon)")
-    p.add_argument("--post-dilution-conc", metavar="Q", help="inhibitor left after the dilution (jump-dilution correction)")
-    p.add_argument("--kapp", metavar="Q", help="apparent Ki under assay conditions (jump-dilution correction)")
-    p.add_argument("--control-label", metavar="LABEL", help="curve label of the control trace (default 'control')")
+    from ..services.fitoptions import FIT_OPTIONS, WEIGHTS
+
+    for dest, (kind, methods, text) in FIT_OPTIONS.items():
+        where = "every method" if len(methods) == len(METHODS) else ", ".join(methods)
+        if kind == "choice":
+            p.add_argument("--weights", choices=list(WEIGHTS), default=None, metavar="|".join(WEIGHTS),
+                           help=f"{text}. Default none ({where})".replace("%", "%%"))
+            continue
+        metavar = "LO,HI" if kind.startswith("interval:") else ("LABEL" if kind == "text" else "Q")
+        p.add_argument("--" + dest.replace("_", "-"), metavar=metavar, default=None,
+                       help=f"{text} ({where})".replace("%", "%%"))
     p.add_argument("--json", action="store_true", help="print the result as JSON (SI units)")
     p.add_argument("--save", metavar="COMPOUND", help="store the fit and its raw data for COMPOUND (a scientist or lead; "
                    "refused when the residence time is more than 3x from one already stored)")
@@ -96,34 +86,9 @@ def register(subparsers) -> None:
 
 
 def _options(args) -> dict:
-    kinds = {
-        "tracer_kon": "rate2", "tracer_koff": "rate1", "tracer_conc": "concentration", "tracer_kd": "concentration",
-        "koff": "rate1", "post_dilution_conc": "concentration", "kapp": "concentration",
-    }
-    out = {}
-    for dest, methods in _OPTIONS.items():
-        val = getattr(args, dest, None)
-        if val is None:
-            continue
-        flag = "--" + dest.replace("_", "-")
-        if args.method not in methods:
-            raise KrtError(f"{flag} does not apply to {args.method} (it is used by {', '.join(methods)})")
-        if dest == "control_label":
-            out[dest] = val
-            continue
-        try:
-            out[dest] = parse_quantity(val, kinds[dest], positive=dest != "post_dilution_conc").si
-        except UnitError as exc:
-            raise UnitError(f"{flag}: {exc}") from None
-    if args.method == "competition-kinetics":
-        missing = [f"--tracer-{n}" for n in ("kon", "koff", "conc") if f"tracer_{n}" not in out]
-        if missing:
-            raise KrtError(f"competition-kinetics needs {', '.join(missing)} (the tracer's own kinetics)")
-    if ("tracer_conc" in out) != ("tracer_kd" in out) and args.method == "ki-shift":
-        raise KrtError("Cheng-Prusoff needs both --tracer-conc and --tracer-kd")
-    if ("post_dilution_conc" in out) != ("kapp" in out):
-        raise KrtError("the jump-dilution correction needs both --post-dilution-conc and --kapp")
-    return out
+    from ..services.fitoptions import FIT_OPTIONS, fit_options
+
+    return fit_options(args.method, {dest: getattr(args, dest, None) for dest in FIT_OPTIONS})
 
 
 def _load(args):
@@ -161,9 +126,9 @@ def run(args) -> int:
 def _save(args, result, df) -> dict:
     from ..db import migrate
     from ..db.session import database_errors, open_engine
-    from ..services.fits import default_actor, save_fit
+    from ..services.fits import FIT_OPTIONS, default_actor, save_fit
 
-    raw_options = {k: getattr(args, k) for k in _OPTIONS if getattr(args, k, None) is not None}
+    raw_options = {k: getattr(args, k) for k in FIT_OPTIONS if getattr(args, k, None) is not None}
     engine = open_engine()
     try:
         with database_errors("saving the fit failed"):
@@ -175,25 +140,10 @@ def _save(args, result, df) -> dict:
 
 
 def format_saved(saved: dict) -> str:
-    """What a save stored, in units (one or a few lines)."""
-    who = saved["compound"]
-    if not saved.get("created"):
-        return f"  already stored for {who} (time course {saved['time_course_id']}); nothing new was written"
-    st = saved.get("stored") or {}
-    if st.get("koff_per_s"):
-        parts = [f"residence time {fmt_time(st.get('residence_time_s'))}", f"koff {fmt_rate1(st['koff_per_s'])}"]
-        if st.get("kon_per_M_per_s"):
-            parts.append(f"kon {fmt_rate2(st['kon_per_M_per_s'])}")
-        if st.get("kd_M"):
-            parts.append(f"KD {fmt_conc(st['kd_M'])}")
-        text = (f"  saved for {who}: {', '.join(parts)} (kinetic measurement {saved['kinetic_measurement_id']}, "
-                f"raw data as time course {saved['time_course_id']})")
-    else:
-        text = f"  saved for {who}: the fit and its raw data (time course {saved['time_course_id']})"
-    for old in saved.get("superseded") or []:
-        text += (f"\n  superseded for {who}: kinetic measurement {old['id']} (residence time "
-                 f"{fmt_time(old['residence_time_s'])}), kept on record")
-    return text
+    """What a save stored, in units (the service's wording, indented under the report)."""
+    from ..services.fits import describe_saved
+
+    return "\n".join("  " + line for line in describe_saved(saved).splitlines())
 
 
 # ---------------------------------------------------------------- report

@@ -32,10 +32,9 @@ well its concentration and curve.  Without a map each well is its own curve.
 Replicates
 ----------
 Rows of one curve that carry different ``replicate`` labels, and wells that
-the map gives the same curve, are replicates.  Time-course methods fit them
-jointly as separate curves that share the rate constants (each keeps its own
-amplitude and baseline; the label becomes ``curve · replicate``); a control
-curve and the curves of the dose-response methods pool their replicates.
+the map gives the same curve (their ``replicate`` is the well), are
+replicates.  The reader passes the ``replicate`` column on; the fit
+(:func:`tracker.kinetics.fit_table`) fits them jointly.
 """
 
 from __future__ import annotations
@@ -57,10 +56,10 @@ __all__ = [
     "TIME_UNITS",
     "CONC_UNITS",
     "DOSE_RESPONSE_METHODS",
-    "CONTROL_METHODS",
     "WellMap",
     "read_time_course",
     "read_well_map",
+    "plate_wells",
     "check_curves",
 ]
 
@@ -69,12 +68,9 @@ CONC_UNITS = ("M", "mM", "uM", "nM", "pM")
 TABLE = "time course"
 #: methods whose x axis is a concentration, not a time
 DOSE_RESPONSE_METHODS = ("ki-shift", "insurmountability", "morrison")
-#: methods with a control curve (pooled across replicates)
-CONTROL_METHODS = ("jump-dilution", "washout-recovery", "insurmountability")
 _KINDS = {"time": "time", "incubation": "time", "concentration": "concentration"}
 _HEADER = re.compile(r"^\s*([A-Za-z_]+)\s*(?:[\(\[]\s*([^\)\]]*?)\s*[\)\]])?\s*$")
 _WELL = re.compile(r"^[A-Za-z]{1,2}0*\d{1,3}$")
-_SEP = " · "
 #: a path, or ``(file name, bytes)`` of an upload
 Source = Union[str, Path, tuple[str, bytes]]
 
@@ -259,6 +255,14 @@ def read_well_map(source: Source | pd.DataFrame, conc_unit: str | None = None, *
     return WellMap(raw.label, wells, lines)
 
 
+def plate_wells(content: bytes, label: str = "upload") -> list[str]:
+    """The well columns of a plate-layout CSV (every named column but ``time``), as written; for a map editor."""
+    raw = _raw((label, content), label)
+    header = _parse_header(raw)
+    tcol = header["time"][0] if "time" in header else None
+    return [raw.original(c) for c in raw.cells.columns if c != tcol]
+
+
 def _well_key(name: str) -> str:
     return name.strip().upper()
 
@@ -319,7 +323,7 @@ def read_time_course(
     of an upload.  ``well_map`` (path, ``(name, bytes)``, DataFrame or
     :class:`WellMap`) switches on the plate layout.  Columns of the result:
     ``time`` (s), ``signal``, ``concentration`` (M), ``curve`` (str),
-    ``incubation`` (s), ``line`` (the reading's line in the file) as the method
+    ``replicate`` (str), ``incubation`` (s), ``line`` (the reading's line in the file) as the method
     uses them; ``attrs['source']`` is the file's label, ``attrs['layout']``
     ``'long'`` or ``'wide'``, ``attrs['units']`` the unit each column was read in.  Raises :class:`~tracker.errors.InputError`
     (``file:line: column: message``).
@@ -389,7 +393,6 @@ def read_time_course(
     df.attrs["units"] = {k: v for k, v in units.items() if v}
     if method == "ki-shift" and "incubation" not in df:
         _incubation_from_labels(df, name, time_unit)
-    _join_replicates(df, method, control_label or "control")
     if method not in DOSE_RESPONSE_METHODS:
         check_curves(df, name)
     return df
@@ -413,22 +416,6 @@ def _incubation_from_labels(df: pd.DataFrame, name: str, time_unit: str | None) 
                                  line=int(line), column="curve") from None
         inc[i] = parsed[label]
     df["incubation"] = inc
-
-
-def _join_replicates(df: pd.DataFrame, method: str, control_label: str) -> None:
-    """Fold ``replicate`` into ``curve`` labels (time courses: own curves; controls and dose-response: pooled)."""
-    if "replicate" not in df:
-        return
-    rep = df.pop("replicate").astype(str).to_numpy(object)
-    if "curve" not in df:
-        df["curve"] = rep
-        return
-    if method in DOSE_RESPONSE_METHODS:
-        return
-    curve = df["curve"].astype(str).to_numpy(object)
-    is_control = np.array([c.strip().lower() == control_label.lower() for c in curve]) if method in CONTROL_METHODS \
-        else np.zeros(len(curve), bool)
-    df["curve"] = np.where(is_control, curve, np.array([f"{c}{_SEP}{r}" for c, r in zip(curve, rep)], dtype=object))
 
 
 def check_curves(df: pd.DataFrame, name: str) -> None:

@@ -33,6 +33,7 @@ import os
 from pathlib import Path
 from typing import Any
 
+import numpy as np
 import pandas as pd
 from sqlalchemy import Engine, insert, select, update
 
@@ -42,6 +43,7 @@ from ..db.session import open_engine, with_retry
 from ..db.uow import UnitOfWork
 from ..errors import FitError, InputError, KrtError, NotFoundError
 from ..fmt import duration as fmt_duration
+from .fitoptions import FIT_OPTIONS, WEIGHTS, fit_options  # noqa: F401  (re-exported for the front ends)
 from .users import require_role
 
 #: a stored residence time this many times longer or shorter than the new one needs a reason to be superseded
@@ -85,6 +87,91 @@ def fit_time_course(method: str, df: pd.DataFrame, *, source: str = "", **option
     return result
 
 
+def _point_labels(result, df: pd.DataFrame) -> list[str]:
+    """The model curve of each row: by curve (and replicate) label, else by nearest concentration, else the one curve."""
+    labels = list(result.curve_labels)
+    n = len(df)
+    if len(labels) <= 1:
+        return [labels[0] if labels else "data"] * n
+    cands = []
+    if "curve" in df and "replicate" in df:
+        from ..kinetics.fitting.common import REPLICATE_SEP
+
+        cands.append([f"{c}{REPLICATE_SEP}{r}" for c, r in zip(df["curve"], df["replicate"])])
+    for col in ("curve", "replicate"):
+        if col in df:
+            cands.append([str(v) for v in df[col]])
+    for cand in cands:
+        if all(c in labels for c in cand):
+            return cand
+    model = result.model
+    if "concentration" in df and model is not None:
+        concs = np.array([c.conc for c in model.curves], float)
+        if np.any(np.isfinite(concs)):
+            return [labels[int(np.nanargmin(np.abs(concs - c)))] for c in df["concentration"].to_numpy(float)]
+    return [labels[0]] * n
+
+
+def fit_overlay(result, df: pd.DataFrame, n: int = 200) -> dict[str, Any]:
+    """What a chart of the fit needs, in SI: measured points with fitted values and residuals, and each curve.
+
+    Returns ``{"points": x, y, curve, fitted, residual; "curves": x, y, lo, hi, curve (95% band);
+    "x_kind": "time" | "conc", "weights"}``.  ``x`` is time (s) or concentration (M).
+    """
+    from ..io.timecourse import DOSE_RESPONSE_METHODS
+
+    is_conc = result.method in DOSE_RESPONSE_METHODS or "time" not in df
+    x = df["concentration" if is_conc else "time"].to_numpy(float)
+    y = df["signal"].to_numpy(float)
+    labels = _point_labels(result, df)
+    fitted = np.full(len(df), np.nan)
+    lab = np.asarray(labels, dtype=object)
+    frames = []
+    for label in dict.fromkeys(labels):
+        sel = lab == label
+        if result.model is None:
+            continue
+        fitted[sel] = result.curve(x[sel], label)
+        xs_data = x[sel]
+        if is_conc:
+            pos = xs_data[xs_data > 0]
+            lo_x = float(pos.min()) if pos.size else 1e-12
+            xs = np.geomspace(lo_x, max(float(xs_data.max()), lo_x * 10), n)
+        else:
+            xs = np.linspace(min(0.0, float(xs_data.min())), float(xs_data.max()), n)
+        lo, hi = result.band(xs, label)
+        frames.append(pd.DataFrame({"x": xs, "y": result.curve(xs, label), "lo": lo, "hi": hi, "curve": label}))
+    curves = pd.concat(frames, ignore_index=True) if frames else pd.DataFrame(columns=["x", "y", "lo", "hi", "curve"])
+    points = pd.DataFrame({"x": x, "y": y, "curve": labels, "fitted": fitted, "residual": y - fitted})
+    return {"points": points, "curves": curves, "x_kind": "conc" if is_conc else "time",
+            "weights": result.to_dict().get("weights", "none")}
+
+
+def describe_saved(saved: dict[str, Any]) -> str:
+    """What a save stored, in units (one line, a second per superseded value); the CLI and the dashboard print it."""
+    from ..fmt import conc as fmt_conc
+    from ..fmt import rate1, rate2
+
+    who = saved["compound"]
+    if not saved.get("created"):
+        return f"already stored for {who} (time course {saved['time_course_id']}); nothing new was written"
+    st = saved.get("stored") or {}
+    if st.get("koff_per_s"):
+        parts = [f"residence time {fmt_duration(st.get('residence_time_s'))}", f"koff {rate1(st['koff_per_s'])}"]
+        if st.get("kon_per_M_per_s"):
+            parts.append(f"kon {rate2(st['kon_per_M_per_s'])}")
+        if st.get("kd_M"):
+            parts.append(f"KD {fmt_conc(st['kd_M'])}")
+        text = (f"saved for {who}: {', '.join(parts)} (kinetic measurement {saved['kinetic_measurement_id']}, "
+                f"raw data as time course {saved['time_course_id']})")
+    else:
+        text = f"saved for {who}: the fit and its raw data (time course {saved['time_course_id']})"
+    for old in saved.get("superseded") or []:
+        text += (f"\nsuperseded for {who}: kinetic measurement {old['id']} (residence time "
+                 f"{fmt_duration(old['residence_time_s'])}), kept on record")
+    return text
+
+
 def default_actor() -> str:
     """The acting user for command-line writes: ``$KRT_USER`` or the OS login."""
     return os.environ.get("KRT_USER") or getpass.getuser()
@@ -99,6 +186,8 @@ def _raw_columns(df: pd.DataFrame) -> dict[str, list]:
         out["concentration_M"] = [float(v) for v in df["concentration"]]
     if "curve" in df:
         out["curve"] = [None if pd.isna(v) else str(v) for v in df["curve"]]
+    if "replicate" in df:
+        out["replicate"] = [None if pd.isna(v) else str(v) for v in df["replicate"]]
     if "incubation" in df:
         out["incubation_s"] = [float(v) for v in df["incubation"]]
     return out
