@@ -28,7 +28,7 @@ CHROMIUM_ARGS = ["--no-sandbox", "--disable-gpu", "--disable-background-networki
 PAGES = {  # url path -> page title
     "": "Risk overview", "overview": "Risk overview", "compound": "Compound evidence", "kinetic-map": "Kinetic map", "measure-next": "Measure next",
     "stage-gate": "Stage gate", "what-if": "What-if", "review-pack": "Review pack", "load-data": "Load data",
-    "audit-trail": "Audit trail",
+    "audit-trail": "Audit trail", "fit-time-course": "Fit a time course",
 }
 
 
@@ -177,3 +177,21 @@ def test_the_review_pack_opens_offline_with_its_charts(browser, shared_engine, d
     assert all(u.startswith(("file:", "data:")) for u in requests), requests
     page.screenshot(path=str(tmp_path / "pack.png"), full_page=True)
     context.close()
+
+
+def test_a_time_course_is_fitted_in_the_browser_with_its_overlay_and_residuals(server, browser, tmp_path):
+    """Upload the demo's dissociation file through the real file input; the fit, its band and the residuals render."""
+    page = browser.new_page(viewport={"width": 1400, "height": 1400})
+    page.goto(f"{server}/fit-time-course")
+    _settle(page)
+    page.locator("[data-testid='stFileUploader'] input[type='file']").first.set_input_files(
+        str(REPO / "seed_demo" / "timecourses" / "QM-2007_dissociation.csv"))
+    page.get_by_text("dissociation fit of QM-2007_dissociation.csv").wait_for(timeout=60_000)
+    _settle(page)
+    page.wait_for_selector("[data-testid='stVegaLiteChart'] canvas, [data-testid='stVegaLiteChart'] svg", timeout=60_000)
+    body = page.inner_text("body")
+    assert "Residence time" in body and "95% CI" in body
+    assert page.locator("[data-testid='stVegaLiteChart']").count() == 2  # the fit overlay and the residuals
+    assert page.locator("[data-testid='stException']").count() == 0
+    page.screenshot(path=str(tmp_path / "fit.png"), full_page=True)
+    page.close()

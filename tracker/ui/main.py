@@ -44,6 +44,7 @@ PAGES: tuple[PageSpec, ...] = (
     PageSpec("gate.py", "Stage gate", "stage-gate", ":material/how_to_reg:", "Decide"),
     PageSpec("what_if.py", "What-if", "what-if", ":material/tune:", "Decide"),
     PageSpec("review_pack.py", "Review pack", "review-pack", ":material/description:", "Decide"),
+    PageSpec("fit.py", "Fit a time course", "fit-time-course", ":material/show_chart:", "Records"),
     PageSpec("load.py", "Load data", "load-data", ":material/upload_file:", "Records"),
     PageSpec("audit.py", "Audit trail", "audit-trail", ":material/fact_check:", "Records"),
 )
