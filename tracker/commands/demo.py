@@ -10,6 +10,8 @@ from pathlib import Path
 
 from ..errors import KrtError
 
+LOCAL_ADDRESS = "127.0.0.1"  # the dashboard of local mode is reachable from this computer only
+
 
 def register(subparsers) -> None:
     p = subparsers.add_parser("demo", help="the invented demo portfolio")
@@ -68,15 +70,16 @@ def run_open(args) -> int:
     # In local mode the dashboard acts as $KRT_USER; the demo signs you in as its lead unless you say otherwise.
     env = dict(os.environ, KRT_DATABASE_URL=url)
     env.setdefault("KRT_USER", "demo-lead")
+    # local mode: listen on the loopback interface only, so no other host can reach the lead's controls
     cmd = [sys.executable, "-m", "streamlit", "run", str(app_path()), "--server.port", str(args.port),
-           "--browser.gatherUsageStats", "false"]
+           "--server.address", LOCAL_ADDRESS, "--browser.gatherUsageStats", "false"]
     from ..ui.theme import APP_THEME
 
     for key, value in APP_THEME.items():
         cmd += [f"--theme.{key}", value]
     if args.no_browser:
         cmd += ["--server.headless", "true"]
-    print(f"demo database: {path}  (acting as {env['KRT_USER']}; set KRT_USER to change)\nopening the dashboard at http://localhost:{args.port}  (Ctrl+C to stop)")
+    print(f"demo database: {path}  (acting as {env['KRT_USER']}; set KRT_USER to change)\nopening the dashboard at http://{LOCAL_ADDRESS}:{args.port}  (Ctrl+C to stop)")
     try:
         return subprocess.call(cmd, env=env)
     except FileNotFoundError as exc:  # pragma: no cover

@@ -4,7 +4,9 @@ Two modes:
 
 * **Sign-in (OIDC).** When Streamlit secrets hold an ``[auth]`` section, the
   dashboard asks people to sign in with ``st.login`` and takes the identity
-  from ``st.user`` (e-mail, else name, else subject).
+  from ``st.user``: the first of its e-mail, preferred username, name and
+  subject claims that is a registered user name (else the e-mail, as an
+  unregistered viewer).
 * **Local mode.** Without ``[auth]``, the identity is ``$KRT_USER`` or the
   operating-system login (the same default the command line uses), and the
   sidebar says plainly that nobody signed in.
@@ -75,29 +77,42 @@ def local_name() -> str:
     return (os.environ.get("KRT_USER") or "").strip() or getpass.getuser()
 
 
-def signed_in_name() -> str | None:
-    """Identity from ``st.user`` when signed in, else ``None``."""
+CLAIMS = ("email", "preferred_username", "name", "sub")  # the OIDC claims matched against user names, in order
+
+
+def signed_in_names() -> list[str]:
+    """The names ``st.user`` reports (e-mail, username, name, subject), or ``[]`` when nobody is signed in."""
     if not st.user.get("is_logged_in", False):
-        return None
-    for key in ("email", "preferred_username", "name", "sub"):
-        value = st.user.get(key)
-        if value:
-            return str(value)
-    return None
+        return []
+    names = [str(st.user.get(key)).strip() for key in CLAIMS if st.user.get(key)]
+    return list(dict.fromkeys(n for n in names if n))
+
+
+def signed_in_name() -> str | None:
+    """Identity from ``st.user`` when signed in (its first claim), else ``None``."""
+    names = signed_in_names()
+    return names[0] if names else None
 
 
 def resolve(engine: Engine) -> Identity | None:
     """The current identity; ``None`` when sign-in is configured and nobody has signed in."""
     if auth_configured():
-        name = signed_in_name()
-        if name is None:
+        names = signed_in_names()
+        if not names:
             return None
-        mode = OIDC
-        display = str(st.user.get("name") or name)
-    else:
-        name, mode, display = local_name(), LOCAL, local_name()
+        # the signed-in person is the first registered user whose name equals one of the claims (e-mail first);
+        # someone no claim of whom is registered is an unregistered viewer under their first claim
+        for name in names:
+            role, active, n = read_user_role(engine, name)
+            if role is not None:
+                break
+        else:
+            name = names[0]
+            role, active, n = read_user_role(engine, name)
+        return Identity(name=name, mode=OIDC, role=role, active=active, n_users=n, display=str(st.user.get("name") or name))
+    name = local_name()
     role, active, n = read_user_role(engine, name)
-    return Identity(name=name, mode=mode, role=role, active=active, n_users=n, display=display)
+    return Identity(name=name, mode=LOCAL, role=role, active=active, n_users=n, display=name)
 
 
 def bootstrap_first_lead(engine: Engine, identity: Identity) -> None:
@@ -107,4 +122,4 @@ def bootstrap_first_lead(engine: Engine, identity: Identity) -> None:
     add_user(engine, identity.name, "lead", by=None)
 
 
-__all__ = ["Identity", "resolve", "auth_configured", "local_name", "signed_in_name", "bootstrap_first_lead", "LOCAL", "OIDC"]
+__all__ = ["Identity", "resolve", "auth_configured", "local_name", "signed_in_name", "signed_in_names", "bootstrap_first_lead", "LOCAL", "OIDC"]

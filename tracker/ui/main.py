@@ -146,6 +146,7 @@ def _sidebar(ctx: Context, names: list[str]) -> None:
     from ..db.session import mask_url
     from ..errors import KrtError
     from . import data, identity
+    from .widgets import md
 
     engine, ctx_url, ver, ident = ctx.engine, ctx.url, ctx.version, ctx.identity
     with st.sidebar:
@@ -157,12 +158,12 @@ def _sidebar(ctx: Context, names: list[str]) -> None:
         else:
             role = ident.effective_role
             if ident.mode == identity.LOCAL:
-                st.markdown(f"**{ident.display}** · {role}")
+                st.markdown(f"**{md(ident.display)}** · {role}")
                 st.caption("LOCAL MODE: nobody signed in; identity is this computer's user "
                            "(or $KRT_USER). Configure [auth] in secrets for sign-in.")
             else:
-                st.markdown(f"**{ident.display}** · {role}")
-                st.caption(f"Signed in as {ident.name}")
+                st.markdown(f"**{md(ident.display)}** · {role}")
+                st.caption(f"Signed in as {md(ident.name)}")
                 st.button("Sign out", on_click=st.logout)
             if not ident.registered and ident.n_users:
                 st.caption("Not in the users table: read-only. Ask a lead to add you (`krt user add`).")
@@ -170,11 +171,11 @@ def _sidebar(ctx: Context, names: list[str]) -> None:
                 st.caption("Your user is deactivated: read-only.")
             if ident.may_bootstrap:
                 st.info("No users are registered yet. The first user becomes the lead.")
-                if st.button(f"Register {ident.name} as lead", key="krt_bootstrap"):
+                if st.button(f"Register {md(ident.name)} as lead", key="krt_bootstrap"):
                     try:
                         identity.bootstrap_first_lead(engine, ident)
                     except KrtError as exc:  # e.g. someone else registered first: one line
-                        st.error(exc.one_line())
+                        st.error(md(exc.one_line()))
                     else:
                         data.clear_caches()
                         st.rerun()
@@ -213,7 +214,9 @@ def run() -> None:
     try:
         nav.run()
     except KrtError as exc:  # a user-facing error from a service: one line, no traceback
-        st.error(exc.one_line())
+        from .widgets import md
+
+        st.error(md(exc.one_line()))
 
 
 if __name__ == "__main__":  # `streamlit run tracker/ui/main.py` (installed package, no app.py)

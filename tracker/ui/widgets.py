@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import html
 import math
+import re
 from typing import Any
 
 import streamlit as st
@@ -43,6 +44,27 @@ def safety_box() -> None:
     )
 
 
+_MARKDOWN_SPECIAL = re.compile(r"([\\`*_{}\[\]()#+\-.!|~<>$:&=^])")
+
+
+_WWW = re.compile(r"(?i)(www)(\\\.)")
+
+
+def md(text: object) -> str:
+    """User-supplied text (names, notes, messages quoting them) for a Markdown element, rendered as typed.
+
+    Every Markdown character is backslash-escaped (CommonMark lets any ASCII
+    punctuation be escaped) and line breaks become spaces, so ``**bold**``,
+    ``[x](http://evil)``, headings, lists and ``:material/...:`` directives
+    show as their characters instead of formatting or links.
+    """
+    escaped = _MARKDOWN_SPECIAL.sub(r"\\\1", " ".join(str(text).split()))
+    # GitHub-flavoured autolinks (http://..., www...., a@b.c) ignore backslash escapes: an invisible word joiner
+    # (U+2060) after every colon, inside "www." and before every "@" keeps them text
+    escaped = escaped.replace("\\:", "\\:\u2060").replace("@", "\u2060@")
+    return _WWW.sub("\\1\u2060\\2", escaped)
+
+
 def finding_card(f: dict[str, Any]) -> None:
     """One finding: severity, rule, the message with its numbers, the prompt and any caution."""
     sev = f.get("severity")
@@ -50,11 +72,11 @@ def finding_card(f: dict[str, Any]) -> None:
         st.markdown(f"{badge_html(sev)} &nbsp; **{html.escape(rule_title(f.get('rule')))}** "
                     f"<span style='color:#8A8F98'>({html.escape(str(f.get('rule', '')))})</span>",
                     unsafe_allow_html=True)
-        st.markdown(str(f.get("message", "")))
+        st.markdown(md(f.get("message", "")))
         if f.get("prompt"):
-            st.markdown(f"**Decision asked:** {f['prompt']}")
+            st.markdown(f"**Decision asked:** {md(f['prompt'])}")
         if f.get("caution"):
-            st.caption(f":material/warning: Caution: {f['caution']}")
+            st.caption(f":material/warning: Caution: {md(f['caution'])}")
 
 
 def findings_list(findings: list[dict[str, Any]], empty: str = "No findings: nothing in the kinetic evidence flags this compound.") -> None:
@@ -94,4 +116,4 @@ def one_line(exc: BaseException) -> str:
     return " ".join(str(exc).split())
 
 
-__all__ = ["badge", "badge_html", "safety_box", "finding_card", "findings_list", "rule_title", "conc", "dur", "fold", "one_line"]
+__all__ = ["badge", "badge_html", "safety_box", "finding_card", "findings_list", "rule_title", "conc", "dur", "fold", "one_line", "md"]

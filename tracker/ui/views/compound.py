@@ -97,16 +97,16 @@ def render() -> None:
     try:
         info = data.compound(ctx.url, ctx.version, name)
     except KrtError as exc:
-        st.error(widgets.one_line(exc))
+        st.error(widgets.md(widgets.one_line(exc)))
         return
     graded = data.findings_of(data.grades(ctx.url, ctx.version, ctx.program), name) or {}
     comp, program = info["compound"], info["program"]
 
     head = st.columns([3, 2])
     with head[0]:
-        st.subheader(name)
-        st.caption(f"{comp['program']} · series {comp.get('series') or '–'} · stage **{comp['stage']}** · "
-                   f"intended profile {program.get('intended_profile') or '–'}")
+        st.subheader(widgets.md(name))
+        st.caption(f"{widgets.md(comp['program'])} · series {widgets.md(comp.get('series') or '–')} · stage **{comp['stage']}** · "
+                   f"intended profile {widgets.md(program.get('intended_profile') or '–')}")
     with head[1]:
         widgets.badge(graded.get("grade"))
         st.page_link(page("stage-gate"), label="Review a stage transition", icon=":material/how_to_reg:")
@@ -144,14 +144,14 @@ def render() -> None:
     if not fits:
         st.info("No raw time courses have been fitted and saved for this compound (`krt fit ... --save`).")
     for title, chart, summary in fits:
-        st.markdown(f"**{title}**")
+        st.markdown(f"**{widgets.md(title)}**")
         if chart is None:
             continue
         cols = st.columns([3, 1])
         cols[0].altair_chart(chart, width="stretch")
         with cols[1]:
             for k, v in summary.items():
-                st.markdown(f"**{k}:** {v}")
+                st.markdown(f"**{widgets.md(k)}:** {widgets.md(v)}")
 
     st.subheader("Target engagement under PK")
     _engagement(info, kin, program, graded.get("findings") or [])
@@ -176,7 +176,7 @@ def _engagement(info: dict, kin: evidence.Kinetics, program: dict, findings: lis
         judged = evidence.judged_engagement(kin, pk_in, program)
         chart = evidence.engagement_chart(kin, pk_in, program, judged=judged)
     except KrtError as exc:
-        st.error(widgets.one_line(exc))
+        st.error(widgets.md(widgets.one_line(exc)))
         return
     m = {k: (None if isinstance(v, float) and v != v else v) for k, v in judged.items()}
     steady = m["dosing_interval_s"] is not None

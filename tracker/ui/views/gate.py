@@ -77,7 +77,7 @@ def render() -> None:
     findings = graded.get("findings") or []
     c1, c2 = st.columns([2, 3])
     with c1:
-        st.markdown(f"**{name}** is at **{stage}**")
+        st.markdown(f"**{widgets.md(name)}** is at **{stage}**")
         widgets.badge(graded.get("grade"))
     targets = [s for s in STAGES if s != stage]
     nxt = STAGES[min(STAGES.index(stage) + 1, len(STAGES) - 1)]
@@ -100,7 +100,7 @@ def render() -> None:
     ident = ctx.identity
     st.subheader("Decision")
     if not (ident and ident.is_lead):
-        who = ident.name if ident else "nobody signed in"
+        who = widgets.md(ident.name) if ident else "nobody signed in"
         st.info(f"Only a lead can waive findings and record a gate decision ({who} is {ctx.role}). "
                 "The findings above are what the lead will see.", icon=":material/lock:")
     else:
@@ -126,7 +126,7 @@ def render() -> None:
                 st.rerun()
     if "gate_message" in st.session_state:
         ok, message = st.session_state.pop("gate_message")
-        (st.success if ok else st.error)(message)
+        (st.success if ok else st.error)(widgets.md(message))
 
     st.subheader("Decisions on record")
     dec = data.decisions(ctx.url, ctx.version, name)

@@ -69,13 +69,13 @@ def render() -> None:
     label = ""
     if floor is not None:
         label = f"assay floor of {chosen} at {widgets.dur(inc)}: {widgets.conc(floor)}"
-        st.markdown(f"**Assay floor of {chosen} at {widgets.dur(inc)}: {widgets.conc(floor)}** (ln2 / (kon · t) with the series' median kon {fmt.rate2(kon)} from {n} compound(s)). "
+        st.markdown(f"**Assay floor of {widgets.md(chosen)} at {widgets.dur(inc)}: {widgets.conc(floor)}** (ln2 / (kon · t) with the series' median kon {fmt.rate2(kon)} from {n} compound(s)). "
                     "Compounds below the dashed line are tighter than this assay can report: they will bunch at the floor.")
     st.altair_chart(charts.kinetic_map_chart(pts, floor_kd_M=floor, floor_label=label, incubation_s=inc, labels=names_on), width="stretch")
     below = pts[(pts["series"] == chosen) & (pts["kd_nM"] * 1e-9 < (floor or 0))]
     if floor is not None and not below.empty:
-        st.warning(f"{len(below)} compound(s) of {chosen} have a true KD below the floor: "
-                   + ", ".join(below["compound"]) + ". Their potency at this incubation is underestimated.")
+        st.warning(f"{len(below)} compound(s) of {widgets.md(chosen)} have a true KD below the floor: "
+                   + widgets.md(", ".join(below["compound"])) + ". Their potency at this incubation is underestimated.")
     with st.expander("Points as a table"):
         table = pts.assign(kon=[fmt.rate2(v) for v in pts["kon"]], koff=[fmt.rate1(v) for v in pts["koff"]],
                            kd_nM=[fmt.conc(v * 1e-9) for v in pts["kd_nM"]])

@@ -150,7 +150,7 @@ def render() -> None:
             st.session_state["load_check_key"] = cache_key
         check = st.session_state["load_check"]
         if check["refused"]:
-            st.error(check["refused"])
+            st.error(widgets.md(check["refused"]))
             return
         if not check["ok"]:
             st.error(f"{len(check['errors'])} problem(s) found; nothing was written. Fix the file(s) and upload again.")
@@ -160,7 +160,7 @@ def render() -> None:
         st.success("The files are valid. This is what a commit would write:")
         st.dataframe(summary_frame(check["summary"]), hide_index=True, placeholder="–", width="stretch")
         for w in check["summary"].get("warnings", []):
-            st.warning(w.replace(str(folder) + "/", ""))
+            st.warning(widgets.md(w.replace(str(folder) + "/", "")))
         if not (ident and ident.can_write):
             st.info("Viewers cannot load data. Ask a lead or scientist.")
             return
@@ -174,7 +174,7 @@ def render() -> None:
                 st.session_state.pop("load_check_key", None)
                 st.rerun()
             elif result["refused"]:
-                st.error(result["refused"])
+                st.error(widgets.md(result["refused"]))
             else:
                 st.error("The import was refused; nothing was written:")
                 st.code("\n".join(e["text"] for e in result["errors"]), language=None)

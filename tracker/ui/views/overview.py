@@ -90,7 +90,7 @@ COLUMN_CONFIG = {
 def render() -> None:
     ctx = context()
     st.title("Risk overview")
-    st.caption(f"{ctx.program or 'All programs'} · kinetic risk of every compound, worst first. "
+    st.caption(f"{widgets.md(ctx.program or 'All programs')} · kinetic risk of every compound, worst first. "
                "Select a row to open the compound's evidence.")
     with st.container(horizontal=True):
         stages = st.multiselect("Stage", STAGES, key="ov_stage", placeholder="all stages")
@@ -111,7 +111,7 @@ def render() -> None:
     high = df.loc[df["grade_key"] == "high", "compound"].tolist()
     if high:
         more = f" and {len(high) - 12} more" if len(high) > 12 else ""
-        st.markdown(f"**Needs attention ({theme.GRADES['high'].badge}):** {', '.join(high[:12])}{more}")
+        st.markdown(f"**Needs attention ({theme.GRADES['high'].badge}):** {widgets.md(', '.join(high[:12]))}{more}")
 
     total = len(df)
     n_pages = max(1, math.ceil(total / PAGE_SIZE))

@@ -5,7 +5,7 @@ from __future__ import annotations
 import pandas as pd
 import streamlit as st
 
-from tracker.ui import data, theme
+from tracker.ui import data, theme, widgets
 from tracker.ui.main import context, open_compound
 
 TABLE_KEY = "queue_table"
@@ -36,7 +36,7 @@ def render() -> None:
         st.success("Nothing queued: every compound that matters has a precise residence time.", icon=":material/check_circle:")
         return
     top = q.iloc[0]
-    st.markdown(f"**First in line:** {top['compound']} ({top['stage']}) — {top['suggested_assay']}.")
+    st.markdown(f"**First in line:** {widgets.md(top['compound'])} ({top['stage']}) — {widgets.md(top['suggested_assay'])}.")
     event = st.dataframe(display_frame(q), key=TABLE_KEY, on_select="rerun", selection_mode="single-row", hide_index=True, placeholder="–",
                          width="stretch", column_config={
                              "Rank": st.column_config.NumberColumn(format="%d", width="small"),

@@ -130,7 +130,7 @@ def render() -> None:
     try:
         portfolio, configs, versions, cid = data.series_frames(ctx.url, ctx.version, name)
     except KrtError as exc:
-        st.error(widgets.one_line(exc))
+        st.error(widgets.md(widgets.one_line(exc)))
         return
     base = stored_scenario(portfolio, cid)
     program = portfolio.programs[portfolio.programs["name"] == portfolio.compounds.loc[portfolio.compounds["id"] == cid, "program"].iloc[0]]
@@ -187,7 +187,7 @@ def render() -> None:
         stored = grade_scenario(portfolio, configs, versions, cid, base, base)
         now = stored if s == base else grade_scenario(portfolio, configs, versions, cid, s, base)
     except KrtError as exc:
-        st.error(widgets.one_line(exc))
+        st.error(widgets.md(widgets.one_line(exc)))
         return
     st.subheader("Grade")
     g = st.columns([1, 1, 3])
@@ -219,7 +219,7 @@ def render() -> None:
         st.caption(f"Regimen judged: {judged['regimen']}")
         st.altair_chart(evidence.engagement_chart(kin, pk_in, program, judged=judged), width="stretch")
     except KrtError as exc:
-        st.error(widgets.one_line(exc))
+        st.error(widgets.md(widgets.one_line(exc)))
 
 
 if __name__ == "__main__":
