@@ -10,6 +10,7 @@ app runs.
 
 from __future__ import annotations
 
+import re
 import shutil
 from pathlib import Path
 
@@ -122,12 +123,22 @@ def open_page(at, view: str, **state):
     return at
 
 
+_MD_ESCAPE = re.compile(r"\\([!-/:-@\[-`{-~])")
+
+
+def shown(markdown: str) -> str:
+    """The characters a reader sees of Markdown source with escaped user text (``tracker.ui.widgets.md``):
+    backslash escapes resolved, the invisible word joiners dropped."""
+    return _MD_ESCAPE.sub(r"\1", str(markdown)).replace("\u2060", "")
+
+
 def page_text(at) -> str:
-    """Every title, markdown, caption, alert and metric text of the current run, joined."""
+    """Every title, markdown, caption, alert and metric text of the current run, joined (escapes resolved, see ``shown``)."""
     parts = []
     for kind in ("title", "header", "subheader", "markdown", "caption", "success", "info", "warning", "error", "metric", "code"):
         for el in at.get(kind):
-            parts.append(f"{getattr(el, 'label', '') or ''} {getattr(el, 'value', '')}")
+            text = f"{getattr(el, 'label', '') or ''} {getattr(el, 'value', '')}"
+            parts.append(text if kind == "code" else shown(text))
     return "\n".join(parts)
 
 
@@ -140,4 +151,4 @@ def ui():
     """Helpers for page tests: ``ui.open(at, view, **state)``, ``ui.text(at)``, ``ui.charts(at)``."""
     from types import SimpleNamespace
 
-    return SimpleNamespace(open=open_page, text=page_text, charts=chart_count)
+    return SimpleNamespace(open=open_page, text=page_text, charts=chart_count, shown=shown)

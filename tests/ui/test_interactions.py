@@ -45,7 +45,7 @@ def test_filtering_by_grade_and_stage_narrows_the_table(app_ro, graded):
     assert expected and set(table["Compound"]) == expected
 
 
-def test_selecting_a_row_opens_that_compounds_evidence(app_ro):
+def test_selecting_a_row_opens_that_compounds_evidence(app_ro, ui):
     at = app_ro()
     table = at.dataframe[0].value
     name = table["Compound"].iloc[2]
@@ -54,7 +54,7 @@ def test_selecting_a_row_opens_that_compounds_evidence(app_ro):
     assert not at.exception
     assert at.title[0].value == "Compound evidence"
     assert at.selectbox(key="pick_krt_compound").value == name
-    assert any(s.value == name for s in at.subheader)
+    assert any(ui.shown(s.value) == name for s in at.subheader)
     at.switch_page("tracker/ui/views/overview.py").run()  # coming back does not re-open the old selection
     assert at.title[0].value == "Risk overview"
 
@@ -80,7 +80,7 @@ def test_a_lead_waives_the_blocking_finding_and_the_approval_lands_in_the_audit_
     at = ui.open(app("demo-lead"), "gate", krt_compound=name)
     assert at.selectbox(key="gate_to").value == to
     _decide(at, {r: f"accepted at review: {r}" for r in high}, "portfolio review: kinetics follow-up agreed")
-    assert any(s.value.startswith(f"Approved: {name} moved {g['stage']} → {to}") for s in at.success)
+    assert any(ui.shown(s.value).startswith(f"Approved: {name} moved {g['stage']} → {to}") for s in at.success)
 
     stage = queries.compounds(demo_engine).set_index("name").loc[name, "stage"]
     assert stage == to
@@ -266,16 +266,16 @@ def test_moving_the_residence_time_changes_the_grade_and_writes_nothing(app, gra
 
 
 # ------------------------------------------------------------------ identity
-def test_local_mode_is_labelled_and_the_role_comes_from_the_users_table(app_ro):
+def test_local_mode_is_labelled_and_the_role_comes_from_the_users_table(app_ro, ui):
     at = app_ro("demo-scientist")
-    side = " ".join(m.value for m in at.sidebar.markdown) + " ".join(c.value for c in at.sidebar.caption)
+    side = ui.shown(" ".join(m.value for m in at.sidebar.markdown) + " ".join(c.value for c in at.sidebar.caption))
     assert "LOCAL MODE" in side
     assert "demo-scientist** · scientist" in side
 
 
-def test_an_unregistered_local_user_reads_as_a_viewer(app_ro):
+def test_an_unregistered_local_user_reads_as_a_viewer(app_ro, ui):
     at = app_ro("stranger")
-    side = " ".join(m.value for m in at.sidebar.markdown) + " ".join(c.value for c in at.sidebar.caption)
+    side = ui.shown(" ".join(m.value for m in at.sidebar.markdown) + " ".join(c.value for c in at.sidebar.caption))
     assert "stranger** · viewer" in side
     assert "Not in the users table" in side
 
@@ -295,14 +295,14 @@ def test_the_first_user_of_an_empty_database_registers_as_lead(app, tmp_path):
     engine.dispose()
 
 
-def test_with_sign_in_configured_the_identity_comes_from_st_user(app, demo_engine):
+def test_with_sign_in_configured_the_identity_comes_from_st_user(app, demo_engine, ui):
     from tracker.services.users import add_user
 
     add_user(demo_engine, "ana@example.org", "lead", by="demo-lead")
     auth = {"redirect_uri": "http://localhost:8501/oauth2callback", "cookie_secret": "x" * 32, "client_id": "id",
             "client_secret": "secret", "server_metadata_url": "https://idp.example.org/.well-known/openid-configuration"}
     at = app("os-user-ignored", secrets={"auth": auth}, st_user={"is_logged_in": True, "email": "ana@example.org", "name": "Ana"})
-    side = " ".join(m.value for m in at.sidebar.markdown) + " ".join(c.value for c in at.sidebar.caption)
+    side = ui.shown(" ".join(m.value for m in at.sidebar.markdown) + " ".join(c.value for c in at.sidebar.caption))
     assert "Signed in as ana@example.org" in side
     assert "Ana** · lead" in side
     assert "LOCAL MODE" not in side
