@@ -70,7 +70,7 @@ def test_weights_chosen_on_the_page_reach_the_fit(app_ro, ui):
 ])
 def test_bad_uploads_get_one_located_line(app_ro, ui, content, expected):
     at = upload(ui.open(app_ro("demo-scientist"), "fit"), "bad.csv", content)
-    assert len(at.error) == 1 and expected in at.error[0].value
+    assert len(at.error) == 1 and expected in ui.shown(at.error[0].value)
     assert ui.charts(at) == 0
 
 
@@ -78,7 +78,7 @@ def test_a_unit_chosen_on_the_page_fills_a_header_without_one(app_ro, ui):
     path = DEMO_TC / "QM-2007_dissociation.csv"
     bare = path.read_text().replace("time (min)", "time", 1).encode()
     at = upload(ui.open(app_ro("demo-scientist"), "fit"), "bare.csv", bare)
-    assert "a unit is needed" in at.error[0].value
+    assert "a unit is needed" in ui.shown(at.error[0].value)
     at.selectbox(key="fit_time_unit").set_value("min").run()
     assert not at.error and ui.charts(at) == 2
 
@@ -123,12 +123,12 @@ def test_saving_uses_the_service_guard_and_a_supersede_reason(app, ui, demo_engi
     at = upload(ui.open(app("demo-scientist"), "fit"), "slip.csv", slip)
     at.selectbox(key="fit_save_compound").set_value("QM-2007").run()
     at.button(key="fit_save").click().run()
-    assert "QM-2007 already has a residence time" in at.error[0].value
+    assert "QM-2007 already has a residence time" in ui.shown(at.error[0].value)
     assert km_of(demo_engine, "QM-2007") == before  # nothing written
     at.text_input(key="fit_supersede").input("plate reader clock exported seconds; re-read").run()
     at.button(key="fit_save").click().run()
     assert not at.error, [e.value for e in at.error]
-    assert "saved for QM-2007: residence time" in at.success[0].value and "superseded for QM-2007" in at.success[0].value
+    assert "saved for QM-2007: residence time" in ui.shown(at.success[0].value) and "superseded for QM-2007" in ui.shown(at.success[0].value)
     after = km_of(demo_engine, "QM-2007")
     assert len(after) == 2 and after[0].superseded_by_id == after[1].id
     assert after[0].superseded_reason == "plate reader clock exported seconds; re-read"

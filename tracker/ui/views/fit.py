@@ -163,7 +163,7 @@ def render() -> None:
         st.session_state.pop(SAVED, None)
     fit = st.session_state[STATE]
     if not fit["ok"]:
-        st.error(fit["error"])
+        st.error(widgets.md(fit["error"]))
         return
     _show(fit)
     _save_box(ctx, fit)
@@ -172,7 +172,7 @@ def render() -> None:
 def _show(fit: dict[str, Any]) -> None:
     res = fit["result"]
     summary = evidence.fit_summary(res)
-    st.subheader(f"{res.method} fit of {fit['source']}")
+    st.subheader(f"{res.method} fit of {widgets.md(fit['source'])}")
     if summary:
         st.markdown("  \n".join(f"**{k}**: {v}" for k, v in summary.items()))
     st.caption(f"Weights: {fit['overlay']['weights']} · intervals: {res.ci_kind} · R² {res.r_squared:.4f} · "
@@ -212,7 +212,7 @@ def _save_box(ctx, fit: dict[str, Any]) -> None:
             st.session_state[SAVED] = ("ok", describe_saved(saved).strip())
     outcome = st.session_state.get(SAVED)
     if outcome:
-        (st.success if outcome[0] == "ok" else st.error)(outcome[1])
+        (st.success if outcome[0] == "ok" else st.error)(widgets.md(outcome[1]))
 
 
 if __name__ == "__main__":
