@@ -185,7 +185,7 @@ def main() -> None:
     tcdir = out / "timecourses"
     tcdir.mkdir(exist_ok=True)
     write_csv(out / "programs.csv", ["program", "target", "intended_profile", "engagement_threshold", "onset_max",
-                                     "duration_min", "offset_max", "dosing_interval"], sc.PROGRAMS)
+                                     "duration_min", "offset_max", "dosing_interval", "target_half_life"], sc.PROGRAMS)
     comps, pot, kin, pk, manifest = [], [], [], [], []
     for c in compounds():
         comps.append(dict(compound=c["name"], program=c["program"], series=c["series"], stage=c["stage"], smiles=""))

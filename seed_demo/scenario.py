@@ -15,9 +15,10 @@ H = 3600.0
 MIN = 60.0
 
 PROGRAMS = [
-    # name, target, profile, threshold, onset_max, duration_min, offset_max, dosing_interval
+    # name, target, profile, threshold, onset_max, duration_min, offset_max, dosing_interval[, target_half_life]
     dict(program="Heronfield", target="HFK1 kinase (invented)", intended_profile="once-daily",
-         engagement_threshold=0.7, onset_max="3 h", duration_min="20 h", offset_max="", dosing_interval="24 h"),
+         engagement_threshold=0.7, onset_max="3 h", duration_min="20 h", offset_max="", dosing_interval="24 h",
+         target_half_life="10 h"),
     dict(program="Quillmere", target="QMR1 receptor (invented)", intended_profile="short-acting",
          engagement_threshold=0.3, onset_max="30 min", duration_min="2 h", offset_max="8 h", dosing_interval=""),
     dict(program="Tallowmoor", target="Tallowmoor protease (invented)", intended_profile="twice-daily",
@@ -88,6 +89,10 @@ COMPOUNDS = [
     ("TM-3006", "Tallowmoor", "TM-nitrile", "clinical", 1.2e6, 45 * MIN, ["TM protease 3h"], "csv:jump-dilution",
      ("human", "oral", "6 h", "80 nM", "2 h", "12 h")),
     ("TM-3007", "Tallowmoor", "TM-lactam", "hit-to-lead", 5e5, 30 * H, ["TM protease 15m"], None, None),
+    # ---- added last, so the seeded noise of every compound above is unchanged
+    # Heronfield's kinase turns over (target t1/2 10 h): a week-long residence time cannot hold it once daily
+    ("HF-1015", "Heronfield", "HF-amide", "lead-optimization", 2e5, 7 * 24 * H, ["HF bind 16h"], "csv:spr",
+     ("rat", "oral", "6 h", "0.9 nM", "1.5 h", "24 h")),
 ]
 
 # functional antagonist curves: fraction of the agonist maximum left (1 = surmountable)

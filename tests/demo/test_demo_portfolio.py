@@ -53,6 +53,9 @@ EXPECTED = {
     "TM-3005": (C, set(), {AU, DM, RTU}),   # candidate read after 3 h with RT 2 h... within tolerance; profile met
     "TM-3006": (C, set(), {AU, DM, RTU}),
     "TM-3007": (C, set(), {RTU}),           # near miss for the floor (3x above it)
+    # added for target turnover (Heronfield's kinase has a 10 h half-life): RT 7 d, once daily at steady state,
+    # resynthesis cuts the time above 70% to ~18 h per interval (it would be the whole interval without turnover)
+    "HF-1015": (M, {AU, DM}, {RTU}),
 }
 
 
@@ -71,6 +74,20 @@ def test_demo_portfolio_grades_as_designed(demo_engine):
         if graded[name]["grade"] != grade or not fire <= rules or rules & silent:
             mismatches.append((name, graded[name]["grade"], sorted(rules)))
     assert not mismatches
+
+
+def test_the_turnover_wording_fires_for_the_week_long_binder_and_stays_silent_elsewhere(demo_engine):
+    graded = {row["compound"]: row for row in grade_portfolio(demo_engine)}
+    dm = {name: [f for f in g["findings"] if f["rule"] == DM and f.get("limit")] for name, g in graded.items()}
+    turnover = sorted(name for name, fs in dm.items() for f in fs if "not dissociation" in f["message"])
+    assert turnover == ["HF-1015"]
+    f = dm["HF-1015"][0]
+    assert f["duration_set_by"] == "turnover" and f["regimen"] == "steady state"
+    assert "steady state on a 24 h dosing interval" in f["message"]
+    # the same program's fast binder fails once daily too, but dissociation sets its duration
+    assert dm["HF-1011"] and dm["HF-1011"][0]["duration_set_by"] == "dissociation"
+    # a program without a dosing interval is judged on one dose
+    assert dm["QM-2010"] and all(f["regimen"] == "single dose" for f in dm["QM-2010"])
 
 
 def test_every_rule_fires_and_stays_silent_somewhere_in_the_demo(demo_engine):

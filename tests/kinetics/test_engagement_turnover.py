@@ -234,3 +234,15 @@ def test_steady_state_time_series_starts_at_the_periodic_state_and_ends_with_the
 def test_bad_turnover_input_raises_an_input_error(bad):
     with pytest.raises(InputError):
         engagement_metrics(1e6, 1e-4, "iv", 10 * NM, None, H, 0.5, **bad)
+
+
+def test_two_state_time_series_has_the_trough_and_offset_the_metrics_give():
+    # bound target protected (f = 0.5): the chart series comes from the same two-state integrator as the metrics
+    args = dict(kon=1e6, koff=1 / (7 * 24 * H), route="oral", cmax=3 * NM, tmax=1 * H, half_life=4 * H)
+    kw = dict(target_half_life=2 * H, bound_degradation_factor=0.5)
+    ts = engagement_timeseries(**args, dosing_interval=24 * H, steady_state=True, threshold=0.5, **kw)
+    m = engagement_metrics(**args, threshold=0.5, dosing_interval=24 * H, **kw)
+    first = ts["t_s"] <= 24 * H
+    assert ts["occupancy"][first].min() == pytest.approx(float(m.trough_occupancy), rel=1e-3)
+    above = ts["t_s"][(ts["t_s"] > 24 * H) & (ts["occupancy"] >= 0.5)]
+    assert above.max() - 24 * H == pytest.approx(float(m.steady_offset_s), rel=2e-2)

@@ -216,12 +216,16 @@ class Regimen:
         extra = (None,) * (s.ndim - 1) if s.ndim else ()
         ke, ka, tau, oral, scale = (a[(Ellipsis,) + extra] if s.ndim else a for a in (ke, ka, tau, oral, scale))
         ge, s1e = _geom(ke, tau, m)
-        fe = np.exp(-ke * s) * ge
-        c_iv = scale * fe
-        dc_iv = -ke * c_iv
-        if not np.any(oral):
-            return c_iv, dc_iv
+        all_oral = bool(np.all(oral))
+        if not all_oral:
+            fe = np.exp(-ke * s) * ge
+            c_iv = scale * fe
+            dc_iv = -ke * c_iv
+            if not np.any(oral):
+                return c_iv, dc_iv
         c_or, dc_or = _bateman_sum(s, ke, ka, tau, m, ge, s1e)
+        if all_oral:
+            return scale * c_or, scale * dc_or
         c = np.where(oral, scale * c_or, c_iv)
         dc = np.where(oral, scale * dc_or, dc_iv)
         return c, dc

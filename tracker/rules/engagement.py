@@ -40,9 +40,11 @@ pharmacologists.
 from __future__ import annotations
 
 import math
+from collections.abc import Mapping, Sequence
 from typing import Any
 
 import numpy as np
+from numpy.typing import ArrayLike, NDArray
 
 from ..kinetics.engagement import engagement_metrics, engagement_timeseries
 from ..fmt import duration as fmt_time
@@ -66,7 +68,7 @@ def _num(v: Any) -> float:
     return x if math.isfinite(x) and x > 0 else math.nan
 
 
-def dosing_interval(program_interval, pk_interval):
+def dosing_interval(program_interval: ArrayLike, pk_interval: ArrayLike) -> Any:
     """The interval judged: the program's, else the PK study's (NaN = single dose); arrays or scalars."""
     p = np.asarray(program_interval, dtype=float)
     k = np.asarray(pk_interval, dtype=float)
@@ -76,13 +78,13 @@ def dosing_interval(program_interval, pk_interval):
     return float(out) if out.ndim == 0 else out
 
 
-def regimen_label(tau) -> str:
+def regimen_label(tau: Any) -> str:
     """``one dose`` or ``steady state on a 24 h dosing interval``."""
     t = _num(tau)
     return "one dose" if math.isnan(t) else f"steady state on a {fmt_time(t)} dosing interval"
 
 
-def duration_set_by(koff, target_half_life, bound_degradation_factor=1.0):
+def duration_set_by(koff: ArrayLike, target_half_life: ArrayLike | None, bound_degradation_factor: ArrayLike = 1.0) -> Any:
     """``"turnover"`` where the residence time exceeds the bound target's half-life (t1/2 / factor),
     ``"dissociation"`` where it does not, ``None`` without a target half-life (object array or scalar)."""
     koff_a = np.asarray(koff, dtype=float)
@@ -93,12 +95,15 @@ def duration_set_by(koff, target_half_life, bound_degradation_factor=1.0):
     with np.errstate(divide="ignore", invalid="ignore"):
         bound_hl = np.where(fac > 0, thl / np.where(fac > 0, fac, 1.0), np.inf)
         turnover = known & (1.0 / koff_a > bound_hl)
-    out = np.where(turnover, "turnover", np.where(known, "dissociation", None)).astype(object)
+    out = np.full(koff_a.shape, None, dtype=object)
+    out[known] = "dissociation"
+    out[turnover] = "turnover"
     return out.item() if out.ndim == 0 else out
 
 
-def regimen_engagement(kon, koff, route, cmax, tmax, half_life, threshold, dosing_interval_s, *, target_half_life=None,
-                       bound_degradation_factor=1.0, metrics=REGIMEN_METRICS) -> dict[str, np.ndarray]:
+def regimen_engagement(kon: ArrayLike, koff: ArrayLike, route: ArrayLike, cmax: ArrayLike, tmax: ArrayLike, half_life: ArrayLike,
+                       threshold: ArrayLike, dosing_interval_s: ArrayLike, *, target_half_life: ArrayLike | None = None,
+                       bound_degradation_factor: ArrayLike = 1.0, metrics: Sequence[str] = REGIMEN_METRICS) -> dict[str, NDArray[Any]]:
     """The judged engagement numbers for arrays of compounds (SI units; see the module docstring).
 
     ``dosing_interval_s``: NaN where a single dose is judged.  ``metrics``: a
@@ -118,7 +123,7 @@ def regimen_engagement(kon, koff, route, cmax, tmax, half_life, threshold, dosin
     tmax_o = np.where(route == "oral", tmax, np.nan)
     single = ~np.isfinite(tau)
 
-    def em(idx, **kw):
+    def em(idx: NDArray[np.intp], **kw: Any) -> Any:
         return engagement_metrics(kon[idx], koff[idx], route[idx], cmax[idx], tmax_o[idx], hl[idx], thr[idx],
                                   target_half_life=thl[idx], bound_degradation_factor=fac[idx], **kw)
 
@@ -151,7 +156,7 @@ def regimen_engagement(kon, koff, route, cmax, tmax, half_life, threshold, dosin
     return out
 
 
-def compound_engagement(kon: float, koff: float, pk: dict, program: dict | None = None, *,
+def compound_engagement(kon: float, koff: float, pk: Mapping[str, Any], program: Mapping[str, Any] | None = None, *,
                         default_threshold: float = 0.5, bound_degradation_factor: float = 1.0,
                         series: bool = True, max_points: int = 700) -> dict[str, Any]:
     """One compound's judged engagement: the regimen, its numbers and (``series``) the chart series.
