@@ -147,3 +147,19 @@ def test_the_service_guard_is_the_same_without_the_cli(kestrel, tmp_path):
         save_fit("K-CAN-1", result, df, "upload.csv", engine=kestrel, actor="sam")
     out = save_fit("K-CAN-1", result, df, "upload.csv", engine=kestrel, actor="lena", supersede="checked with the bench notes")
     assert out["created"] and len(out["superseded"]) == 1
+
+
+def test_an_export_leaves_out_superseded_values_so_a_re_import_cannot_revive_them(cli, kestrel, tmp_path):
+    from tracker.db import queries
+
+    code, _out, err = cli("fit", "dissociation", dissociation_file(tmp_path, header_unit="s"), "--save", "K-CAN-1",
+                          "--by", "sam", "--supersede", "clock fixed")
+    assert code == 0, err
+    code, _out, err = cli("export", str(tmp_path / "out"))
+    assert code == 0, err
+    rows = (tmp_path / "out" / "kinetics.csv").read_text().splitlines()
+    can = [r for r in rows if r.startswith("K-CAN-1,")]
+    assert len(can) == 1 and ",6 h," not in can[0]  # only the current (superseding) value
+    latest = queries.kinetics(kestrel, latest=True, compounds=["K-CAN-1"])
+    assert len(latest) == 1 and latest["superseded_by_id"].isna().all()
+    assert len(queries.kinetics(kestrel, compounds=["K-CAN-1"])) == 2  # the older value stays on record

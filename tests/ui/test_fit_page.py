@@ -132,6 +132,10 @@ def test_saving_uses_the_service_guard_and_a_supersede_reason(app, ui, demo_engi
     after = km_of(demo_engine, "QM-2007")
     assert len(after) == 2 and after[0].superseded_by_id == after[1].id
     assert after[0].superseded_reason == "plate reader clock exported seconds; re-read"
+    # the evidence page keeps the older value on record and says it was superseded, and why
+    at = ui.open(at, "compound", krt_compound="QM-2007")
+    status = [df for df in (d.value for d in at.dataframe) if "Status" in df.columns][0]["Status"].tolist()
+    assert sorted(status) == ["current", f"superseded by #{after[1].id}: plate reader clock exported seconds; re-read"]
 
 
 def test_a_viewer_can_fit_but_not_save(app_ro, ui):

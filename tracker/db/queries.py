@@ -122,8 +122,10 @@ def pk(bind: Bind, compounds: Iterable[str] | None = None, program: str | None =
 def kinetics(bind: Bind, latest: bool = False, compounds: Iterable[str] | None = None, program: str | None = None) -> pd.DataFrame:
     """Kinetic measurements, with ``residence_time_s = 1/koff`` and ``kd_from_rates_M = koff/kon`` added.
 
-    ``latest=True`` keeps one row per compound: the most recent ``measured_on``
-    (undated rows count as oldest), ties broken by the newest row.
+    ``latest=True`` keeps one row per compound among those not superseded: the
+    most recent ``measured_on`` (undated rows count as oldest), ties broken by
+    the newest row.  Without it every row is listed, superseded ones included
+    (``superseded_by_id`` says by which).
     """
     cols = list(KineticMeasurement.__table__.columns)
     base = (
@@ -133,6 +135,7 @@ def kinetics(bind: Bind, latest: bool = False, compounds: Iterable[str] | None =
     )
     base = _compound_filter(base, compounds, program)
     if latest:
+        base = base.where(KineticMeasurement.superseded_by_id.is_(None))
         rank = func.row_number().over(
             partition_by=KineticMeasurement.compound_id,
             order_by=(KineticMeasurement.measured_on.desc().nulls_last(), KineticMeasurement.id.desc()),

@@ -87,7 +87,10 @@ def collect_rows(session) -> dict[str, list[dict[str, str | None]]]:
         for m, name in session.execute(q)
     ]
 
-    q = select(KineticMeasurement, Compound.name).join(Compound, Compound.id == KineticMeasurement.compound_id).order_by(KineticMeasurement.id)
+    # a superseded value is not exported: the format has no column for it, and re-imported it would come back as
+    # current evidence, silently undoing a reviewed supersession (it stays on record in the database and its audit trail)
+    q = (select(KineticMeasurement, Compound.name).join(Compound, Compound.id == KineticMeasurement.compound_id)
+         .where(KineticMeasurement.superseded_by_id.is_(None)).order_by(KineticMeasurement.id))
     kin = []
     for m, name in session.execute(q):
         as_rt = m.koff_given_as == "residence_time" and m.koff_text

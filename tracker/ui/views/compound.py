@@ -79,7 +79,17 @@ def kinetics_frame(kin: pd.DataFrame) -> pd.DataFrame:
         "koff 95% CI": [_ci(lo, hi) for lo, hi in zip(kin["koff_low_per_s"], kin["koff_high_per_s"])],
         "Date": kin["measured_on"].dt.date if "measured_on" in kin else None,
         "Source": kin["source"],
+        "Status": _status(kin),
     })
+
+
+def _status(kin: pd.DataFrame) -> list[str]:
+    """'current', or which measurement superseded the row and why (superseded values are kept, not graded)."""
+    if "superseded_by_id" not in kin:
+        return ["current"] * len(kin)
+    reasons = kin["superseded_reason"] if "superseded_reason" in kin else pd.Series([None] * len(kin), index=kin.index)
+    return ["current" if pd.isna(by) else f"superseded by #{int(by)}" + (f": {why}" if isinstance(why, str) and why else "")
+            for by, why in zip(kin["superseded_by_id"], reasons)]
 
 
 def _ci(lo, hi) -> str:
