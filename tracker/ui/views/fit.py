@@ -113,12 +113,13 @@ def _display(overlay: dict[str, Any]) -> tuple[pd.DataFrame, pd.DataFrame, pd.Da
     return p[["x", "y", "curve"]], c, p[["x", "residual", "curve"]], title, kind
 
 
-def residual_chart(res: pd.DataFrame, x_title: str, x_kind: str) -> alt.Chart:
+def residual_chart(res: pd.DataFrame, x_title: str, x_kind: str, labels: list[str]) -> alt.Chart:
     xscale = alt.Scale(type="log") if x_kind == "conc" else alt.Scale(zero=False)
     zero = alt.Chart(pd.DataFrame({"y": [0.0]})).mark_rule(color="#888", strokeDash=[4, 3]).encode(y="y:Q")
     dots = alt.Chart(res).mark_circle(size=30, opacity=0.85).encode(
         x=alt.X("x:Q", scale=xscale, title=x_title), y=alt.Y("residual:Q", title="Residual (measured − fitted)"),
-        color=alt.Color("curve:N", title="Curve", legend=None),
+        color=alt.Color("curve:N", title="Curve", legend=None,  # the same colour per curve as the fit above
+                        scale=alt.Scale(domain=labels, range=(list(charts.CURVE_PALETTE) * (len(labels) // len(charts.CURVE_PALETTE) + 1))[: max(1, len(labels))])),
         tooltip=[alt.Tooltip("curve:N", title="Curve"), alt.Tooltip("x:Q", title=x_title, format=".3g"),
                  alt.Tooltip("residual:Q", title="Residual", format=".4g")])
     return alt.layer(zero, dots).properties(height=160)
@@ -181,7 +182,8 @@ def _show(fit: dict[str, Any]) -> None:
         st.warning(f"{message} [{code}]")
     points, curves, resid, x_title, x_kind = _display(fit["overlay"])
     st.altair_chart(charts.fit_chart(points, curves, x_title, x_kind), width="stretch")
-    st.altair_chart(residual_chart(resid, x_title, x_kind), width="stretch")
+    labels = list(dict.fromkeys(list(curves["curve"]) + list(points["curve"])))
+    st.altair_chart(residual_chart(resid, x_title, x_kind, labels), width="stretch")
 
 
 def _save_box(ctx, fit: dict[str, Any]) -> None:
