@@ -13,6 +13,7 @@ import csv
 import datetime as dt
 import io
 import math
+from collections.abc import Iterator
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -190,6 +191,92 @@ def _finish(raw: RawTable, header: list[str] | None, rows: list | None, lines: l
     raw.lines = lines
 
 
+def iter_csv_chunks(path: Path, table: str, rows: int = 50_000, label: str | None = None) -> Iterator[RawTable]:
+    """Read a large CSV file ``rows`` records at a time, in bounded memory.
+
+    Each chunk is a :class:`RawTable` with the header's columns and its own
+    line numbers, exactly as :func:`read_csv` would number them; problems go to
+    the chunk's ``errors``.  A file that is not UTF-8 is handed to
+    :func:`read_csv`, which locates the first bad byte.  After a malformed
+    record nothing more is read.
+    """
+    label = label or str(path)
+    try:
+        fh = path.open("r", encoding="utf-8-sig", newline="")
+    except OSError as exc:
+        raw = RawTable(table, label, path.name, pd.DataFrame(), [])
+        raw.errors.append(InputError(f"cannot read file: {exc.strerror or exc}", file=label))
+        yield raw
+        return
+    try:
+        yield from _csv_chunks(fh, path, table, rows, label)
+    except UnicodeDecodeError:
+        yield read_csv(path, table, label)  # reports the first byte that is not UTF-8 with its line and column
+    finally:
+        fh.close()
+
+
+def _csv_chunks(fh, path: Path, table: str, size: int, label: str) -> Iterator[RawTable]:
+    reader = csv.reader(fh)
+    header: list[str] | None = None
+    header_line = 1
+    end = 0  # last physical line consumed
+    rows: list[list[str | None]] = []
+    lines: list[int] = []
+    pending: list[InputError] = []
+
+    def chunk() -> RawTable:
+        raw = RawTable(table, label, path.name, pd.DataFrame(), [])
+        raw.header_line = header_line
+        raw.errors.extend(pending)
+        _finish(raw, list(header or []), rows, lines)
+        return raw
+
+    while True:
+        start = end + 1
+        try:
+            record = next(reader)
+        except StopIteration:
+            break
+        except csv.Error as exc:
+            raw = RawTable(table, label, path.name, pd.DataFrame(), [])
+            raw.errors.append(raw.error(reader.line_num, None, f"malformed CSV: {exc}"))
+            yield raw
+            return
+        end = reader.line_num
+        if header is None:
+            if record and any(c.strip() for c in record):
+                header = [c.strip().lower() for c in record]
+                header_line = start
+                probe = RawTable(table, label, path.name, pd.DataFrame(), [])
+                probe.header_line = header_line
+                _finish(probe, header, [], [])
+                if probe.errors:
+                    yield probe
+                    return
+            continue
+        if not record or all(not c.strip() for c in record):
+            continue
+        width = len(header)
+        if len(record) > width:
+            if any(c.strip() for c in record[width:]):
+                pending.append(InputError(f"line has {len(record)} fields but the header has {width}", file=label, line=start))
+                continue
+            record = record[:width]
+        rows.append([c.strip() or None for c in record] + [None] * (width - len(record)))
+        lines.append(start)
+        if len(rows) >= size:
+            yield chunk()
+            rows, lines, pending = [], [], []
+    if header is None:
+        raw = RawTable(table, label, path.name, pd.DataFrame(), [])
+        raw.errors.append(raw.error(1, None, f"file is empty; expected a header line: {','.join(SPECS[table].names)}"))
+        yield raw
+        return
+    if rows or pending or not lines:
+        yield chunk()
+
+
 # ------------------------------------------------------------------ XLSX
 def read_xlsx(path: Path, only_table: str | None = None, label: str | None = None) -> list[RawTable]:
     """Read the sheets of a workbook that name tables (or, with ``only_table``, that one sheet)."""
@@ -296,24 +383,39 @@ def _cell_text(raw: RawTable, cell, line: int, column: str) -> str | None:
 # ------------------------------------------------------------------ sources
 def gather(path: Path, table: str | None = None) -> tuple[list[RawTable], list[InputError]]:
     """Read a file (CSV or XLSX) or a folder of them; returns tables and errors about the sources."""
+    tables, errors, _ = gather_deferred(path, table, None)
+    return tables, errors
+
+
+def gather_deferred(path: Path, table: str | None = None, defer_over: int | None = None,
+                    defer_tables: tuple[str, ...] = ()) -> tuple[list[RawTable], list[InputError], list[tuple[Path, str]]]:
+    """Like :func:`gather`, but CSV files of ``defer_tables`` are not read when one of a table's files exceeds
+    ``defer_over`` bytes: those come back as ``(path, table)`` to be read in chunks (:func:`iter_csv_chunks`)."""
     errors: list[InputError] = []
     if table is not None and table not in SPECS:
         errors.append(InputError(f"unknown table {table!r}; tables are {', '.join(SPECS)}", file=str(path)))
-        return [], errors
+        return [], errors, []
     if not path.exists():
         errors.append(InputError("no such file or folder", file=str(path)))
-        return [], errors
+        return [], errors, []
     if path.is_dir():
         if table is not None:
             errors.append(InputError("--table applies to one file, not a folder", file=str(path)))
-            return [], errors
+            return [], errors, []
         files = sorted(p for p in path.iterdir() if p.is_file() and p.suffix.lower() in (".csv", ".xlsx") and not p.name.startswith((".", "~$")))
         if not files:
             errors.append(InputError(f"no .csv or .xlsx files in the folder (expected {', '.join(s + '.csv' for s in SPECS)})", file=str(path)))
-            return [], errors
+            return [], errors, []
     else:
         files = [path]
     tables: list[RawTable] = []
+    deferred: list[tuple[Path, str]] = []
+    big: set[str] = set()
+    if defer_over is not None:
+        for f in files:
+            t = table or table_for_name(f.stem)
+            if f.suffix.lower() in (".csv", ".txt") and t in defer_tables and f.stat().st_size > defer_over:
+                big.add(t)
     for f in files:
         suffix = f.suffix.lower()
         if suffix == ".xlsx":
@@ -326,10 +428,13 @@ def gather(path: Path, table: str | None = None) -> tuple[list[RawTable], list[I
         if t is None:
             errors.append(InputError(f"cannot tell which table this file holds; name it {', '.join(s + '.csv' for s in SPECS)} or pass --table", file=str(f)))
             continue
+        if t in big:
+            deferred.append((f, t))
+            continue
         tables.append(read_csv(f, t))
     for raw in tables:
         errors.extend(raw.errors)
-    return tables, errors
+    return tables, errors, deferred
 
 
 __all__ = ["RawTable", "read_csv", "read_csv_bytes", "read_xlsx", "gather"]

@@ -85,8 +85,45 @@ def _frame(raws: list[RawTable], spec: TableSpec, order_of: dict[str, int]) -> t
     return pd.concat(parts, ignore_index=True), errors
 
 
-def validate_tables(raws: list[RawTable]) -> Validated:
-    """Validate every table read for one import; see the module docstring."""
+class Occurrences:
+    """How often each row payload of one table has been seen, across the chunks of a large file.
+
+    Keeps a sorted array of 64-bit BLAKE2b digests of the payloads and their
+    counts (16 bytes per distinct row), so numbering a chunk's replicates
+    0, 1, ... continues where the previous chunk stopped, in bounded memory.
+    """
+
+    def __init__(self) -> None:
+        self.keys = np.empty(0, dtype=np.uint64)
+        self.counts = np.empty(0, dtype=np.int64)
+
+    def number(self, payloads: list[str]) -> np.ndarray:
+        """The occurrence number of each payload (0 for its first appearance in the whole table)."""
+        blake = hashlib.blake2b
+        keys = np.fromiter((int.from_bytes(blake(p.encode(), digest_size=8).digest(), "little") for p in payloads),
+                           dtype=np.uint64, count=len(payloads))
+        within = pd.Series(keys).groupby(keys, sort=False).cumcount().to_numpy(dtype=np.int64)
+        prev = np.zeros(len(keys), dtype=np.int64)
+        if len(self.keys):
+            pos = np.minimum(np.searchsorted(self.keys, keys), len(self.keys) - 1)
+            hit = self.keys[pos] == keys
+            prev[hit] = self.counts[pos[hit]]
+        u, c = np.unique(keys, return_counts=True)
+        allk = np.concatenate([self.keys, u])
+        allc = np.concatenate([self.counts, c.astype(np.int64)])
+        order = np.argsort(allk, kind="stable")
+        allk, allc = allk[order], allc[order]
+        self.keys, first = np.unique(allk, return_index=True)
+        self.counts = np.add.reduceat(allc, first) if len(allk) else allc
+        return prev + within
+
+
+def validate_tables(raws: list[RawTable], occurrences: Occurrences | None = None) -> Validated:
+    """Validate every table read for one import; see the module docstring.
+
+    ``occurrences`` continues the replicate numbering of an earlier chunk of the
+    same table (see :class:`Occurrences`); ``None`` numbers within ``raws``.
+    """
     out = Validated()
     order_of = {raw.label: i for i, raw in enumerate(raws)}
     for name in ORDER:
@@ -97,7 +134,7 @@ def validate_tables(raws: list[RawTable]) -> Validated:
         out.files[name] = [r.label for r in mine]
         df, errors = _frame(mine, spec, order_of)
         out.errors.extend(errors)
-        df, errors, warnings = _validate_rows(df, spec)
+        df, errors, warnings = _validate_rows(df, spec, occurrences)
         out.errors.extend(errors)
         out.warnings.extend(warnings)
         out.tables[name] = df
@@ -113,7 +150,7 @@ def _sort_key(e: InputError, order_of: dict[str, int]):
     return (order_of.get(loc.file, -1), loc.line or 0, loc.column or "")
 
 
-def _validate_rows(df: pd.DataFrame, spec: TableSpec) -> tuple[pd.DataFrame, list[InputError], list[InputError]]:
+def _validate_rows(df: pd.DataFrame, spec: TableSpec, occurrences: Occurrences | None = None) -> tuple[pd.DataFrame, list[InputError], list[InputError]]:
     errors: list[InputError] = []
     warnings: list[InputError] = []
     bad = np.zeros(len(df), dtype=bool)
@@ -198,7 +235,7 @@ def _validate_rows(df: pd.DataFrame, spec: TableSpec) -> tuple[pd.DataFrame, lis
     if spec.key:
         _entity_duplicates(df, spec, flag)
     if spec.hashed:
-        df["content_hash"] = content_hashes(df, spec)
+        df["content_hash"] = content_hashes(df, spec, occurrences)
     df["_bad"] = bad
     return df, errors, warnings
 
@@ -273,7 +310,7 @@ def _near_duplicates(df: pd.DataFrame, key: str, flag) -> None:
              "only by case or look-alike characters; use one spelling")
 
 
-def content_hashes(df: pd.DataFrame, spec: TableSpec) -> list[str]:
+def content_hashes(df: pd.DataFrame, spec: TableSpec, occurrences: Occurrences | None = None) -> list[str]:
     """SHA-256 per row over the table name, the row's text cells (``source`` excluded) and its occurrence number.
 
     Identical rows within one import are replicates and get occurrence numbers
@@ -292,10 +329,12 @@ def content_hashes(df: pd.DataFrame, spec: TableSpec) -> list[str]:
         payloads = ["\x1f".join(cells) for cells in zip(*columns)]
     except TypeError:  # a cell that is not text
         payloads = ["\x1f".join(map(str, cells)) for cells in zip(*columns)]
-    seen: dict[str, int] = {}
     out = []
     sha256 = hashlib.sha256
     prefix = f"{spec.name}\x1e"
+    if occurrences is not None:
+        return [sha256(f"{prefix}{p}\x1e{k}".encode()).hexdigest() for p, k in zip(payloads, occurrences.number(payloads).tolist())]
+    seen: dict[str, int] = {}
     for p in payloads:
         k = seen.get(p, 0)
         seen[p] = k + 1
@@ -303,4 +342,4 @@ def content_hashes(df: pd.DataFrame, spec: TableSpec) -> list[str]:
     return out
 
 
-__all__ = ["Validated", "validate_tables", "content_hashes"]
+__all__ = ["Validated", "validate_tables", "content_hashes", "Occurrences"]

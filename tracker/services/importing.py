@@ -29,6 +29,7 @@ SQLite, COPY on PostgreSQL).
 from __future__ import annotations
 
 import datetime as dt
+import hashlib
 import math
 import sys
 from collections.abc import Iterable
@@ -50,12 +51,15 @@ from ..db.uow import UnitOfWork
 from ..errors import ImportErrors, InputError, PermissionDenied
 from ..errors import IntegrityError as KrtIntegrityError
 from ..io.names import name_key
-from ..io.reading import gather
+from ..io.reading import gather_deferred, iter_csv_chunks
 from ..io.specs import COMPOUNDS, PROGRAMS, SPECS
-from ..io.validate import Validated, validate_tables
+from ..io.validate import Occurrences, Validated, validate_tables
 
 PROGRESS_THRESHOLD = 5_000  # rows; larger imports show progress on stderr
 CHUNK = 5_000
+STREAM_BYTES = 4_000_000  # a measurement CSV larger than this is read, checked and written in chunks (bounded memory)
+STREAM_ROWS = 20_000  # rows per chunk of such a file
+MAX_STREAM_ERRORS = 1_000  # problems listed from large files (the rest are counted)
 WRITER_ROLES = ("lead", "scientist")
 
 MODELS = {"potency": Potency, "kinetics": KineticMeasurement, "pk": PKProfile}
@@ -106,24 +110,33 @@ def import_path(
     refused or applied.  The demo re-load uses it.
     """
     path = Path(path)
-    raws, source_errors = gather(path, table)
+    raws, source_errors, deferred = gather_deferred(path, table, STREAM_BYTES, tuple(MODELS))
     validated = validate_tables(raws)
     errors = source_errors + [e for e in validated.errors if e not in source_errors]
     if errors:  # report stored-data problems too, so one run lists everything
         if isinstance(target, UnitOfWork):
             errors += _resolve(target.session, validated, keep_existing)[1]
+            known = _known_compounds(target.session, validated)
         else:
             with UnitOfWork(target, write=False) as uow:
                 errors += _resolve(uow.session, validated, keep_existing)[1]
+                known = _known_compounds(uow.session, validated)
         order = {raw.label: i for i, raw in enumerate(raws)}
         errors.sort(key=lambda e: (order.get(e.location.file, -1), e.location.line or 0) if e.location else (-2, 0))
+        if deferred:  # large files: checked chunk by chunk, nothing kept
+            errors += _scan_deferred(deferred, known)
         raise ImportErrors(errors)
-    show = progress if progress is not None else validated.rows > PROGRESS_THRESHOLD
+    big = deferred and any(Path(f).stat().st_size > 0 for f, _ in deferred)
+    show = progress if progress is not None else (validated.rows > PROGRESS_THRESHOLD or bool(big))
     prog = Progress(show, stream)
-    prog.say(f"validated {validated.rows:,} rows from {sum(len(f) for f in validated.files.values())} file(s)")
+    prog.say(f"validated {validated.rows:,} rows from {sum(len(f) for f in validated.files.values())} file(s)"
+             + (f"; {len(deferred)} large file(s) follow in chunks of {STREAM_ROWS:,} rows" if deferred else ""))
 
     def run(uow: UnitOfWork) -> dict[str, Any]:
-        return _write(uow.session, validated, actor, prog, keep_existing)
+        summary = _write(uow.session, validated, actor, prog, keep_existing)
+        if deferred:
+            _write_deferred(uow.session, deferred, actor, prog, summary)
+        return summary
 
     if isinstance(target, UnitOfWork):
         summary = run(target)
@@ -143,7 +156,7 @@ def import_path(
             except sa_exc.IntegrityError as exc:
                 first = str(exc.orig).strip().splitlines()[0] if str(exc.orig).strip() else "constraint violated"
                 raise KrtIntegrityError(f"the database refused the import ({first}); nothing was written") from None
-    summary["warnings"] = [w.one_line() for w in validated.warnings]
+    summary["warnings"] = [w.one_line() for w in validated.warnings] + summary.pop("_stream_warnings", [])
     summary["path"] = str(path)
     prog.say("import committed")
     return summary
@@ -305,6 +318,153 @@ def _write(session: Session, v: Validated, actor: str, prog: Progress, keep_exis
     append_events(session, events)
     summary["audit_events"] = len(events)
     return summary
+
+
+# ------------------------------------------------------------------ large files, in bounded memory
+def _known_compounds(session: Session, v: Validated) -> set[str]:
+    stored = set(session.execute(select(Compound.name)).scalars())
+    df = v.tables.get("compounds")
+    return stored | (set(df["compound"].dropna()) if df is not None else set())
+
+
+def _deferred_chunks(deferred: list[tuple[Path, str]], known: Iterable[str] | dict[str, int]):
+    """Validated chunks of the large files, table by table: ``(table, files, df or None, errors, warnings)``.
+
+    Replicate numbering (content hashes) runs across all files of a table, as
+    in a whole-file import; every row's compound must be known.
+    """
+    for name in MODELS:
+        files = [f for f, t in deferred if t == name]
+        if not files:
+            continue
+        occ = Occurrences()
+        labels = [str(f) for f in files]
+        for f in files:
+            for raw in iter_csv_chunks(Path(f), name, STREAM_ROWS):
+                v = validate_tables([raw], occ)
+                errors = list(raw.errors) + list(v.errors)
+                df = v.tables.get(name)
+                if df is not None and not df.empty:
+                    unknown = df[df["compound"].notna() & ~df["compound"].isin(known)]
+                    for label, line, value in zip(unknown["_label"], unknown["_line"], unknown["compound"]):
+                        errors.append(InputError(f"unknown compound {value!r} (not in the database or in this import)",
+                                                 file=label, line=int(line), column="compound"))
+                    errors.sort(key=lambda e: (e.location.line or 0) if e.location else 0)
+                yield name, labels, df, errors, v.warnings
+
+
+def _capped(errors: list[InputError], more: int) -> list[InputError]:
+    if more:
+        errors = errors + [InputError(f"... and {more:,} more problems in the large file(s) not listed; fix these and import again")]
+    return errors
+
+
+def _scan_deferred(deferred: list[tuple[Path, str]], known: set[str]) -> list[InputError]:
+    errors: list[InputError] = []
+    more = 0
+    for _, _, _, chunk_errors, _ in _deferred_chunks(deferred, known):
+        room = MAX_STREAM_ERRORS - len(errors)
+        errors += chunk_errors[:max(room, 0)]
+        more += max(len(chunk_errors) - max(room, 0), 0)
+    return _capped(errors, more)
+
+
+def _write_deferred(session: Session, deferred: list[tuple[Path, str]], actor: str, prog: Progress, summary: dict[str, Any]) -> None:
+    """Validate and insert the large files chunk by chunk inside the import's transaction.
+
+    Memory stays bounded by the chunk size: only ids, compound ids and content
+    hashes (as 32 bytes) of the inserted rows are kept, about 50 bytes a row,
+    for the audit event.  Any problem raises :class:`ImportErrors` after the whole file was
+    checked, and the transaction then writes nothing.
+    """
+    compound_ids = dict(session.execute(select(Compound.name, Compound.id)).all())
+    now = dt.datetime.now(dt.timezone.utc)
+    files_all = summary["files"] + [str(f) for f, _ in deferred]
+    reason = f"import of {', '.join(files_all)}"
+    summary["files"] = files_all
+    errors: list[InputError] = []
+    more = 0
+    warnings: list[str] = []
+    events: list[dict[str, Any]] = []
+    state: dict[str, dict[str, Any]] = {}
+    for name, labels, df, chunk_errors, chunk_warnings in _deferred_chunks(deferred, compound_ids.keys()):
+        st = state.setdefault(name, {"files": labels, "rows": 0, "ids": [], "cids": [], "hashes": [],
+                                     "stored": session.execute(select(MODELS[name].id).limit(1)).first() is not None})
+        warnings += [w.one_line() for w in chunk_warnings[:100]]
+        if chunk_errors or errors:
+            room = MAX_STREAM_ERRORS - len(errors)
+            errors += chunk_errors[:max(room, 0)]
+            more += max(len(chunk_errors) - max(room, 0), 0)
+            continue
+        if df is None or df.empty:
+            continue
+        model, spec = MODELS[name], SPECS[name]
+        st["rows"] += len(df)
+        ids = df["compound"].map(compound_ids)
+        is_new = np.ones(len(df), dtype=bool)
+        if st["stored"]:
+            hashes = df["content_hash"].tolist()
+            found: set[tuple[int, str]] = set()
+            for i in range(0, len(hashes), 500):
+                found |= {tuple(r) for r in session.execute(
+                    select(model.compound_id, model.content_hash).where(model.content_hash.in_(hashes[i:i + 500])))}
+            is_new = np.fromiter(((c, h) not in found for c, h in zip(ids.tolist(), hashes)), dtype=bool, count=len(df))
+        new = df[is_new].copy()
+        new["_compound_id"] = ids[is_new]
+        cols = {"compound_id": "_compound_id", **_db_columns(spec, skip=("compound",)), "content_hash": "content_hash"}
+        if name == "kinetics":
+            cols.update({"koff_per_s": "koff_per_s", "koff_text": "koff_text", "koff_given_as": "koff_given_as"})
+        values = _columns(new, cols)
+        new_ids = _insert(session, model.__table__, values, {"created_at": now}, name, prog, ("compound_id", "content_hash"))
+        st["ids"].append(np.asarray(new_ids, dtype=np.int64))
+        st["cids"].append(np.asarray(values["compound_id"], dtype=np.int64))
+        st["hashes"].append(np.frombuffer(bytes.fromhex("".join(values["content_hash"])), dtype=np.uint8).reshape(-1, 32))
+        prog.say(f"{name}: {st['rows']:,} rows checked and written", transient=True)
+    if errors:
+        raise ImportErrors(_capped(errors, more))
+    for name, st in state.items():
+        ids = np.concatenate(st["ids"]) if st["ids"] else np.empty(0, dtype=np.int64)
+        n_rows = len(ids)
+        summary["tables"][name] = {"files": st["files"], "rows": st["rows"], "inserted": n_rows, "updated": 0,
+                                   "unchanged": st["rows"] - n_rows}
+        if n_rows:
+            cids = np.concatenate(st["cids"])
+            hashes = np.concatenate(st["hashes"])
+            events.append(_event(actor, "import", MODELS[name].__tablename__, None, None,
+                                 {"files": st["files"], "rows": st["rows"], "inserted": n_rows,
+                                  "duplicates_skipped": st["rows"] - n_rows,
+                                  "id_ranges": _id_runs(ids), "rows_sha256": _rows_digest_arrays(ids, cids, hashes)}, reason))
+    append_events(session, events)
+    summary["audit_events"] = summary.get("audit_events", 0) + len(events)
+    summary["_stream_warnings"] = warnings
+
+
+def _id_runs(ids: np.ndarray) -> list[list[int]]:
+    """:func:`tracker.db.audit.id_ranges` of an id array, computed with numpy."""
+    s = np.unique(ids)
+    if not len(s):
+        return []
+    breaks = np.flatnonzero(np.diff(s) != 1)
+    starts = np.concatenate([s[:1], s[breaks + 1]])
+    ends = np.concatenate([s[breaks], s[-1:]])
+    return [[int(a), int(b)] for a, b in zip(starts.tolist(), ends.tolist())]
+
+
+def _rows_digest_arrays(ids: np.ndarray, cids: np.ndarray, hashes: np.ndarray) -> str:
+    """:func:`tracker.db.audit.rows_digest` of the lines ``id<TAB>compound_id<TAB>content_hash``, without building them all.
+
+    The lines start with distinct ids, so sorting the lines is sorting the ids as text.
+    """
+    order = np.argsort(ids.astype("S20"), kind="stable")  # ASCII digits: byte order is text order
+    digest = hashlib.sha256()
+    first = True
+    for i in range(0, len(order), 50_000):
+        part = order[i:i + 50_000]
+        hexes = hashes[part].tobytes().hex()
+        text = "\n".join(f"{a}\t{b}\t{hexes[64 * k:64 * k + 64]}" for k, (a, b) in enumerate(zip(ids[part].tolist(), cids[part].tolist())))
+        digest.update((text if first else "\n" + text).encode("utf-8"))
+        first = False
+    return digest.hexdigest()
 
 
 @dataclass
