@@ -47,6 +47,7 @@ def test_one_table_with_machine_versions_medians_ratios_goals_and_a_markdown_cop
         "simulation": _fake(lambda n: [Row("simulation", "1.00 s", "solve_ivp loop", "300 s", 300.0, "faster", 100.0, True, n)]),
         "fit": _fake(lambda n: [Row("plate fit", "0.20 s", "ODE fit", "12 s", 60.0, "faster", 50.0, True, n)]),
         "page": _fake(lambda n: [Row("page rerun", "0.10 s", "DB read", "0.20 s", 0.5, "slower", 3.0, True, n)]),
+        "pack": _fake(lambda n: [Row("demo review pack", "2.00 s", "grading", "1.00 s", 2.0, "slower", None, True, n)]),
     })
     md = tmp_path / "bench.md"
     assert main(["bench", "--repeats", "5", "--markdown", str(md)]) == 0
@@ -56,7 +57,7 @@ def test_one_table_with_machine_versions_medians_ratios_goals_and_a_markdown_cop
     assert lines[0].startswith("Benchmarks, ") and "cores" in lines[0]
     assert lines[1].startswith("Versions: python ") and all(f"{lib} " in lines[1] for lib in ("numpy", "scipy", "pandas", "sqlalchemy", "streamlit"))
     table = [ln for ln in lines if ln.startswith("|")]
-    assert len(table) == 2 + 4 and "| figure" in table[0] and "baseline (same run)" in table[0]
+    assert len(table) == 2 + 5 and "| figure" in table[0] and "baseline (same run)" in table[0]
     assert "100x the baseline" in table[2] and "<= 10x the baseline" in table[2] and "MISSED" in table[2]
     assert "300x faster" in table[3] and ">= 100x faster" in table[3] and "| met" in table[3]
     assert "0.50x the baseline" in table[5]
