@@ -4,6 +4,8 @@ from __future__ import annotations
 
 import filecmp
 
+import pytest
+
 import pandas as pd
 
 from tracker.db import queries
@@ -97,3 +99,32 @@ def test_a_value_stored_without_its_text_is_exported_in_si(migrated_engine, samp
     line = [l for l in (tmp_path / "out" / "kinetics.csv").read_text().splitlines() if l.startswith("BKF-001")][0]
     assert line.startswith("BKF-001,competition-kinetics,2500000.0 /M/s,0.0004 /s,")
     assert queries.counts(migrated_engine)["kinetic_measurements"] >= 1
+
+
+def test_assay_conditions_round_trip_in_their_own_units_and_leave_older_rows_hashes_alone(migrated_engine, second_migrated_engine,
+                                                                                            sample_dir, tmp_path):
+    from tracker.io.specs import POTENCY
+    from tracker.io.validate import content_hashes
+
+    pot = sample_dir / "potency.csv"
+    lines = pot.read_text(encoding="utf-8").splitlines()
+    lines[0] += ",preincubation,max_incubation,target_conc"
+    lines[1] += ",15 min,16 h,0.2 nM"
+    lines[2:] = [line + ",,," for line in lines[2:]]
+    pot.write_text("\n".join(lines) + "\n", encoding="utf-8")
+    import_path(migrated_engine, sample_dir, actor="ana")
+    stored = queries.potency(migrated_engine)
+    row = stored[stored["compound"] == "AUR-001"].iloc[0]
+    assert row["preincubation_s"] == 900.0 and row["max_incubation_s"] == 16 * 3600.0 and row["target_conc_M"] == pytest.approx(0.2e-9)
+    out = tmp_path / "export"
+    export_all(migrated_engine, out)
+    exported = pd.read_csv(out / "potency.csv", dtype=str, keep_default_na=False)
+    first = exported[exported["compound"] == "AUR-001"].iloc[0]
+    assert (first["preincubation"], first["max_incubation"], first["target_conc"]) == ("15 min", "16 h", "0.2 nM")
+    import_path(second_migrated_engine, out, actor="ana")
+    assert _content(migrated_engine)["potency"].equals(_content(second_migrated_engine)["potency"])
+    # a row without the new columns hashes exactly as before they existed (re-imports of old files add nothing)
+    old_cols = [c.name for c in POTENCY.columns if not c.added]
+    df = pd.DataFrame([{c: "" for c in POTENCY.names} | {"compound": "X", "value": "1 nM"}])
+    legacy = type(POTENCY)(POTENCY.name, POTENCY.db_table, tuple(c for c in POTENCY.columns if c.name in old_cols), hashed=True)
+    assert content_hashes(df, POTENCY) == content_hashes(df[old_cols], legacy)

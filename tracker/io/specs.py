@@ -13,7 +13,8 @@ programs    program, target*, intended_profile*, engagement_threshold*,
 compounds   compound, program, series*, stage, smiles*
 potency     compound, assay, readout, value, incubation, format,
             tracer_conc*, tracer_kd*, tracer_residence_time*,
-            max_response_fraction*, date*, source*
+            max_response_fraction*, date*, source*, preincubation*,
+            max_incubation*, target_conc*
 kinetics    compound, method, kon*, koff | residence_time, kd*,
             kon_low*, kon_high*, koff_low*, koff_high*, date*, source*
 pk          compound, species, route, half_life, free_cmax, tmax (oral),
@@ -48,6 +49,9 @@ class Col:
     choices: tuple[str, ...] = ()
     ref: str | None = None  # table referenced by a "ref" column
     max_len: int = 200
+    #: added after the first version of the format: enters a row's content hash only when filled,
+    #: so rows imported before the column existed keep their hashes (re-imports add nothing twice)
+    added: bool = False
 
     @property
     def is_quantity(self) -> bool:
@@ -132,6 +136,12 @@ POTENCY = TableSpec(
         _q("max_response_fraction", "fraction", "", positive=False),
         _DATE,
         _SOURCE,
+        # assay conditions the evidence model simulates (tracker.rules.evidence): the compound's pre-incubation
+        # with the target before the read starts, the longest incubation the assay can practically run, and the
+        # enzyme or receptor concentration in the well (tight binding, tracer depletion)
+        _q("preincubation", "time", "s", positive=False, added=True),
+        _q("max_incubation", "time", "s", added=True),
+        _q("target_conc", "concentration", "M", added=True),
     ),
     hashed=True,
 )

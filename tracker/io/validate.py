@@ -317,7 +317,8 @@ def content_hashes(df: pd.DataFrame, spec: TableSpec, occurrences: Occurrences |
     0, 1, ...; re-importing the same rows yields the same hashes, so nothing is
     added twice.
     """
-    cols = [c.name for c in spec.columns if c.name != "source"]
+    cols = [c.name for c in spec.columns if c.name != "source" and not c.added]
+    added = [c.name for c in spec.columns if c.added]
     if df.empty:
         return []
     columns = []
@@ -329,6 +330,13 @@ def content_hashes(df: pd.DataFrame, spec: TableSpec, occurrences: Occurrences |
         payloads = ["\x1f".join(cells) for cells in zip(*columns)]
     except TypeError:  # a cell that is not text
         payloads = ["\x1f".join(map(str, cells)) for cells in zip(*columns)]
+    for c in added:  # columns added later count only when filled: older rows keep their hashes
+        if c not in df.columns:
+            continue
+        cells = df[c].to_numpy(dtype=object)
+        filled = ~pd.isna(cells) & (cells != "")
+        if filled.any():
+            payloads = [p + f"\x1d{c}={v}" if f else p for p, v, f in zip(payloads, cells, filled)]
     out = []
     sha256 = hashlib.sha256
     prefix = f"{spec.name}\x1e"

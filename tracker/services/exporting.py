@@ -83,7 +83,8 @@ def collect_rows(session) -> dict[str, list[dict[str, str | None]]]:
         {"compound": name, "assay": m.assay, "readout": m.readout,
          **_quantity_cells(m, "potency", ("value", "incubation")), "format": m.format,
          **_quantity_cells(m, "potency", ("tracer_conc", "tracer_kd", "tracer_residence_time", "max_response_fraction")),
-         "date": m.measured_on.isoformat() if m.measured_on else None, "source": m.source}
+         "date": m.measured_on.isoformat() if m.measured_on else None, "source": m.source,
+         **_quantity_cells(m, "potency", ("preincubation", "max_incubation", "target_conc"))}
         for m, name in session.execute(q)
     ]
 

@@ -67,7 +67,7 @@ def _read(bind, fn):
 # as long as the grade itself; these lean selects read only what the rules use (same models, same SI columns).
 _POTENCY_COLS = (Potency.id, Potency.compound_id, Potency.assay, Potency.readout, Potency.value_M, Potency.incubation_s,
                  Potency.format, Potency.tracer_conc_M, Potency.tracer_kd_M, Potency.tracer_residence_time_s,
-                 Potency.max_response_fraction)
+                 Potency.max_response_fraction, Potency.preincubation_s, Potency.max_incubation_s, Potency.target_conc_M)
 _KINETICS_COLS = (KineticMeasurement.id, KineticMeasurement.compound_id, KineticMeasurement.method, KineticMeasurement.kon_per_M_s,
                   KineticMeasurement.koff_per_s, KineticMeasurement.kd_M, KineticMeasurement.koff_low_per_s,
                   KineticMeasurement.koff_high_per_s, KineticMeasurement.fit_json, KineticMeasurement.time_course_id,

@@ -24,7 +24,7 @@ EXAMPLES: dict[str, dict[str, str]] = {
                  "dosing_interval": "24 h", "target_half_life": "30 h"},
     "compounds": {"compound": "SAMPLE-0001", "program": "Example program", "series": "sample-amide", "stage": "hit", "smiles": ""},
     "potency": {"compound": "SAMPLE-0001", "assay": "binding 1h", "readout": "KD", "value": "3.2 nM", "incubation": "1 h",
-                "format": "binding", "date": "2026-01-15", "source": "ELN page 12"},
+                "format": "binding", "date": "2026-01-15", "source": "ELN page 12", "max_incubation": "24 h"},
     "kinetics": {"compound": "SAMPLE-0001", "method": "spr", "kon": "1e6 /M/s", "koff": "1e-4 /s", "date": "2026-02-01",
                  "source": "SPR run 7"},
     "pk": {"compound": "SAMPLE-0001", "species": "rat", "route": "oral", "half_life": "4 h", "free_cmax": "50 nM", "tmax": "1 h",
