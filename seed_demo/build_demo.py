@@ -28,6 +28,7 @@ from tracker.kinetics import assay, equations  # noqa: E402
 from tracker.units import parse_quantity  # noqa: E402
 
 RNG = np.random.default_rng(20261201)
+RNG_EXTRA = np.random.default_rng(20261202)  # draws for the added rows, so the original rows keep their values
 H, MIN = sc.H, sc.MIN
 
 
@@ -67,15 +68,20 @@ def potency_rows(c) -> list[dict]:
             t_kd = q(extra["tracer_kd"], "concentration")
             t_rt = q(extra["tracer_residence_time"], "time")
             t_conc = q(extra["tracer_conc"], "concentration")
+            pre = q(extra["preincubation"], "time") if extra.get("preincubation") else 0.0
             app, _ = assay.apparent_affinity(c["kd"], c["koff"], inc, format="competition",
-                                             tracer_kd=t_kd, tracer_koff=1 / t_rt, tracer_conc=t_conc)
+                                             tracer_kd=t_kd, tracer_koff=1 / t_rt, tracer_conc=t_conc, preincubation=pre)
             value = float(app)
         else:
             app, _ = assay.apparent_affinity(c["kd"], c["koff"], inc)
             value = float(app)
             if fmt == "enzyme":  # an IC50 at substrate = Km reads ~2x Ki (Cheng-Prusoff, competitive)
                 value *= 2.0
-        value *= 10 ** RNG.normal(0, 0.04)
+                if extra.get("target_conc"):  # tight binding: IC50 = Kapp + [E]/2 (Morrison 1969; Copeland et al. 1995)
+                    value += q(extra["target_conc"], "concentration") / 2.0
+        added = c["name"] in sc.ADDED
+        value *= 10 ** (RNG_EXTRA if added else RNG).normal(0, 0.04)
+        value *= sc.VALUE_ERRORS.get((c["name"], name), 1.0)
         row = dict(compound=c["name"], assay=name, readout=readout, value=conc_text(value),
                    incubation=inc_text, format=fmt, date=f"2026-{3 + i:02d}-{10 + i:02d}", source="demo ELN export")
         row.update(extra)
@@ -85,9 +91,10 @@ def potency_rows(c) -> list[dict]:
     return rows
 
 
-def kinetics_row(c, method: str) -> dict:
-    kon = c["kon"] * 10 ** RNG.normal(0, 0.03)
-    koff = c["koff"] * 10 ** RNG.normal(0, 0.03)
+def kinetics_row(c, method: str, rt_factor: float = 1.0, rng=None) -> dict:
+    rng = rng or (RNG_EXTRA if c["name"] in sc.ADDED else RNG)
+    kon = c["kon"] * 10 ** rng.normal(0, 0.03)
+    koff = c["koff"] / rt_factor * 10 ** rng.normal(0, 0.03)
     row = dict(compound=c["name"], method=method, kon=f"{kon:.3g} /M/s", kd=conc_text(koff / kon),
                kon_low=f"{kon / 1.4:.3g} /M/s", kon_high=f"{kon * 1.4:.3g} /M/s", date="2026-06-02",
                source="demo CRO report")
@@ -194,6 +201,8 @@ def main() -> None:
             kind, method = c["kin"].split(":")
             if kind == "csv":
                 kin.append(kinetics_row(c, method))
+                for extra_method, factor in sc.EXTRA_KINETICS.get(c["name"], []):
+                    kin.append(dict(kinetics_row(c, extra_method, factor, RNG_EXTRA), date="2026-07-14", source="demo second CRO report"))
             else:
                 manifest.append(time_course(c, method, tcdir))
         if c["pk"]:
@@ -202,7 +211,8 @@ def main() -> None:
                            tmax=tmax, dosing_interval=tau))
     write_csv(out / "compounds.csv", ["compound", "program", "series", "stage", "smiles"], comps)
     write_csv(out / "potency.csv", ["compound", "assay", "readout", "value", "incubation", "format", "tracer_conc",
-                                    "tracer_kd", "tracer_residence_time", "max_response_fraction", "date", "source"], pot)
+                                    "tracer_kd", "tracer_residence_time", "max_response_fraction", "date", "source",
+                                    "preincubation", "max_incubation", "target_conc"], pot)
     write_csv(out / "kinetics.csv", ["compound", "method", "kon", "koff", "residence_time", "kd", "kon_low", "kon_high",
                                      "koff_low", "koff_high", "date", "source"], kin)
     write_csv(out / "pk.csv", ["compound", "species", "route", "half_life", "free_cmax", "tmax", "dosing_interval"], pk)

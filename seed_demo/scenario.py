@@ -27,14 +27,21 @@ PROGRAMS = [
 
 # Assays per program: name -> (readout, format, incubation, extra columns)
 ASSAYS = {
-    "HF bind 1h": ("KD", "binding", "1 h", {}),
-    "HF bind 16h": ("KD", "binding", "16 h", {}),
-    "HF kinase act": ("IC50", "enzyme", "30 min", {}),
+    # the kinase assays run at most a day (plate stability): beyond it a slow amide gets a kinetic method recommended
+    "HF bind 1h": ("KD", "binding", "1 h", {"max_incubation": "24 h"}),
+    "HF bind 16h": ("KD", "binding", "16 h", {"max_incubation": "24 h"}),
+    "HF kinase act": ("IC50", "enzyme", "30 min", {"max_incubation": "24 h"}),
     "QM tracer comp": ("Ki", "competition-binding", "1 h",
                        {"tracer_conc": "1 nM", "tracer_kd": "0.5 nM", "tracer_residence_time": "10 min"}),
     "QM calcium antag": ("Kb", "functional", "30 min", {}),
+    # a slowly dissociating tracer (RT 3 h) used at 10x its KD and read after 30 min: fast compounds read too potent
+    "QM slow tracer comp": ("Ki", "competition-binding", "30 min",
+                            {"tracer_conc": "2 nM", "tracer_kd": "0.2 nM", "tracer_residence_time": "3 h", "preincubation": "10 min"}),
     "TM protease 15m": ("IC50", "enzyme", "15 min", {}),
     "TM protease 3h": ("IC50", "enzyme", "3 h", {}),
+    # the high-sensitivity format runs 20 nM enzyme: IC50s cannot fall below [E]/2 = 10 nM (Morrison)
+    "TM protease hi-E": ("IC50", "enzyme", "1 h", {"target_conc": "20 nM"}),
+    "TM protease lo-E": ("IC50", "enzyme", "1 h", {"target_conc": "0.1 nM"}),
 }
 
 # name, program, series, stage, kon /M/s, residence time s (KD = 1/(kon*RT)), assays, kinetics, pk
@@ -93,7 +100,24 @@ COMPOUNDS = [
     # Heronfield's kinase turns over (target t1/2 10 h): a week-long residence time cannot hold it once daily
     ("HF-1015", "Heronfield", "HF-amide", "lead-optimization", 2e5, 7 * 24 * H, ["HF bind 16h"], "csv:spr",
      ("rat", "oral", "6 h", "0.9 nM", "1.5 h", "24 h")),
+    # ---- added for the evidence model's findings (each fires here and stays silent elsewhere); their random
+    # draws come from a second generator, so every compound above keeps its values
+    ("HF-1016", "Heronfield", "HF-amide", "lead-optimization", 1e6, 15 * H, ["HF bind 16h"], "csv:spr", None),
+    ("HF-1017", "Heronfield", "HF-urea", "hit", 2e6, 5 * MIN, ["HF bind 1h"], None, None),
+    ("QM-2013", "Quillmere", "QM-biaryl", "lead-optimization", 5e6, 4 * MIN, ["QM slow tracer comp"], "csv:spr", None),
+    ("TM-3008", "Tallowmoor", "TM-nitrile", "hit-to-lead", 5e6, 20 * MIN, ["TM protease hi-E"], None, None),
+    ("TM-3009", "Tallowmoor", "TM-nitrile", "hit-to-lead", 5e6, 20 * MIN, ["TM protease lo-E"], None, None),
 ]
+
+#: compounds added for the evidence model (their random draws come from a second generator)
+ADDED = {"HF-1016", "HF-1017", "QM-2013", "TM-3008", "TM-3009"}
+
+# further kinetic runs of a compound: (method, residence-time factor against its true RT); a factor far from 1 is a
+# faulty run (HF-1016: a competition-kinetics run read an eighth of the RT, conflicting), one near 1 a replicate (HF-1012)
+EXTRA_KINETICS = {"HF-1016": [("competition-kinetics", 0.125)], "HF-1012": [("spr", 1.25)]}
+
+# transcription errors in the ELN export: (compound, assay) -> factor on the value (HF-1017: pM typed for nM)
+VALUE_ERRORS = {("HF-1017", "HF bind 1h"): 1e-3}
 
 # functional antagonist curves: fraction of the agonist maximum left (1 = surmountable)
 MAX_RESPONSE = {"QM-2003": 0.45, "QM-2004": 0.96, "HF-1014": 0.97}

@@ -17,6 +17,7 @@ from tracker.services.grading import grade_portfolio
 
 H, M, L, C = "high", "moderate", "low", "clear"
 RTU, AU, DM = "residence-time-unmeasured", "affinity-underestimate", "duration-mismatch"
+CK, AO, TB, BF = "conflicting-kinetics", "affinity-overestimate", "tight-binding-limit", "potency-below-floor"
 
 # compound: (grade, rules that must fire, rules that must stay silent)
 EXPECTED = {
@@ -29,9 +30,9 @@ EXPECTED = {
     "HF-1007": (H, {AU}, {RTU}),            # measured RT 17.5 h, read after 1 h: ~13x shift
     "HF-1008": (H, {RTU}, set()),           # advanced lead without kinetics
     "HF-1009": (C, set(), {AU, RTU, DM}),   # measured RT 8 min read after 1 h: no shift
-    "HF-1010": (H, {AU}, {RTU, DM}),        # candidate, enzyme assay 30 min vs RT 31 h; once-daily profile met
+    "HF-1010": (H, {AU}, {RTU, DM}),        # candidate, enzyme assay 30 min vs RT 31 h (beyond the 24 h assay maximum); once-daily met
     "HF-1011": (H, {DM}, {RTU, AU}),        # candidate, RT 10 min, t1/2 3 h: too short for once-daily
-    "HF-1012": (M, {AU}, {RTU, DM}),        # clinical, 16 h read vs RT 33 h: ~2x
+    "HF-1012": (M, {AU}, {RTU, DM, CK}),    # clinical, 16 h read vs RT 33-44 h (two agreeing runs, geometric mean): ~2x
     "HF-1013": (M, {AU, DM}, {RTU}),        # candidate without PK: says what is missing
     "HF-1014": (C, set(), {AU, RTU}),       # surmountable functional curve (95% of Emax)
     "QM-2001": (C, set(), {AU, RTU}),
@@ -56,6 +57,12 @@ EXPECTED = {
     # added for target turnover (Heronfield's kinase has a 10 h half-life): RT 7 d, once daily at steady state,
     # resynthesis cuts the time above 70% to ~18 h per interval (it would be the whole interval without turnover)
     "HF-1015": (M, {AU, DM}, {RTU}),
+    # added for the evidence model's findings
+    "HF-1016": (M, {CK}, {AU, RTU}),        # two kinetic runs 7x apart: conflict, graded on the longer RT until resolved
+    "HF-1017": (L, {BF}, {AU}),             # a value typed in pM for nM: far below the floor, a data question, not slow binding
+    "QM-2013": (M, {AO}, {AU}),             # fast compound against a slow tracer at 10x its KD, read early: reads too potent
+    "TM-3008": (L, {TB}, {AU}),             # IC50 at the titration limit of 20 nM enzyme (Morrison): likely underestimate
+    "TM-3009": (C, set(), {TB, AU}),        # the same kind of compound with 0.1 nM enzyme: near miss for tight binding
 }
 
 
@@ -92,9 +99,18 @@ def test_the_turnover_wording_fires_for_the_week_long_binder_and_stays_silent_el
 
 def test_every_rule_fires_and_stays_silent_somewhere_in_the_demo(demo_engine):
     graded = grade_portfolio(demo_engine)
-    for rule in (RTU, AU, DM):
+    from tracker.rules.config import RULES
+
+    for rule in RULES:
         fired = [r["compound"] for r in graded if any(f["rule"] == rule for f in r["findings"])]
         assert fired and len(fired) < len(graded), rule
+
+
+def test_a_reading_that_needs_more_than_the_assay_maximum_gets_a_kinetic_method_instead(demo_engine):
+    graded = {row["compound"]: row for row in grade_portfolio(demo_engine)}
+    f = next(f for f in graded["HF-1010"]["findings"] if f["rule"] == AU and f["assay"] == "HF kinase act")
+    assert f["kinetic_method_recommended"] is True and f["max_incubation_s"] == 24 * 3600.0
+    assert "kinetic method" in f["prompt"] and "simulations are not dosing advice" in f["caution"].lower()
 
 
 def test_demo_load_is_idempotent(demo_engine):

@@ -24,7 +24,7 @@ def test_grade_text_shows_grades_findings_prompts_and_cautions(cli):
     assert "K-CAN-1" in out and "High risk" in out and "E-LO-1" not in out
     assert "-> Review the prolonged offset" in out and "next-day impairment" in out
     code, out, _ = cli("grade", "--summary")
-    assert "->" not in out and "6 compound(s): 2 high risk, 2 moderate risk, 0 low risk, 2 no flags" in out
+    assert "->" not in out and "9 compound(s): 2 high risk, 3 moderate risk, 2 low risk, 2 no flags" in out
     code, out, _ = cli("grade", "--compound", "E-LO-1", "--json")
     assert [r["compound"] for r in json.loads(out)] == ["E-LO-1"]
 

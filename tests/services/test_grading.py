@@ -30,6 +30,9 @@ def test_the_designed_portfolio_grades_as_designed(kestrel, expected_grades):
         "K-HIT-1": [],
         "K-CAN-1": ["duration-mismatch"],
         "E-LO-1": ["affinity-underestimate"],
+        "P-LO-1": ["conflicting-kinetics"],
+        "P-HTL-1": ["tight-binding-limit"],
+        "P-HIT-1": ["affinity-underestimate"],
     }
     json.dumps(records, allow_nan=False)
 
@@ -46,7 +49,7 @@ def test_the_dashboard_frames_carry_the_numbers(kestrel):
     assert df.loc["E-LO-1", "max_fold_shift"] > 4
     assert df.loc["K-CAN-1", "top_rule"] == "duration-mismatch"
     f = findings_frame(kestrel)
-    assert set(f["compound"]) == {"K-ADV-1", "K-LO-1", "K-CAN-1", "E-LO-1"}
+    assert set(f["compound"]) == {"K-ADV-1", "K-LO-1", "K-CAN-1", "E-LO-1", "P-LO-1", "P-HTL-1", "P-HIT-1"}
 
 
 def test_one_compound_is_graded_with_its_series_as_context(kestrel):

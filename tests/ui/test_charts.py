@@ -78,24 +78,6 @@ def test_a_dose_response_fit_drops_zero_concentrations_from_its_log_axis():
     assert curves[["lo", "hi"]].notna().all().all()
 
 
-def test_predicted_fold_reproduces_the_residence_time_rule_of_thumb():
-    # common practice: RT 6 h, KD 1 nM in saturation binding reads ~20 nM after 10 min and ~4 nM after 1 h.
-    # The page's vectorised dispatch must land on the same model: computed 25.4x and 4.62x; tolerance 30 % / 20 %
-    # (the trade figures are round numbers).
-    fold = data.predicted_fold(koff=np.full(2, 1 / 21600), kon=np.full(2, (1 / 21600) / 1e-9), kd=np.full(2, 1e-9),
-                               incubation=np.array([600.0, 3600.0]), fmt=np.array(["binding", "binding"], object),
-                               tracer_conc=np.full(2, np.nan), tracer_kd=np.full(2, np.nan), tracer_rt=np.full(2, np.nan))
-    assert fold[0] == pytest.approx(20, rel=0.30)
-    assert fold[1] == pytest.approx(4, rel=0.20)
-
-
-def test_predicted_fold_is_missing_without_kinetics():
-    fold = data.predicted_fold(koff=np.array([np.nan]), kon=np.array([np.nan]), kd=np.array([np.nan]),
-                               incubation=np.array([3600.0]), fmt=np.array(["binding"], object), tracer_conc=np.array([np.nan]),
-                               tracer_kd=np.array([np.nan]), tracer_rt=np.array([np.nan]))
-    assert np.isnan(fold[0])
-
-
 def test_every_grade_the_grader_can_give_has_one_colour_and_one_label():
     from tracker.rules.config import GRADES
 

@@ -356,7 +356,7 @@ def check_affinity_underestimate(
         beyond = np.isfinite(min_inc) and min_inc > max_inc[i]
         rt_text = ("≥ " if lower_bound[k] else "") + fmt_time(rt[i])
         note = f"; {r.note}" if r.note else ""
-        pre_text = f" after {fmt_time(pre[k])} pre-incubation" if np.isfinite(pre[k]) and pre[k] > 0 else ""
+        pre_text = f" (after {fmt_time(pre[k])} pre-incubation)" if np.isfinite(pre[k]) and pre[k] > 0 else ""
         others = ""
         if len(group) > 1:
             times = sorted({float(t[j]) for j in group if j != i})

@@ -75,8 +75,8 @@ KINETICS_COLUMNS = ["compound_id", "kinetic_measurement_id", "kinetic_measuremen
                     "koff_spread_fold", "conflict", "kinetics_basis"]
 
 #: Columns :func:`predict_readings` adds to each potency row.
-READING_COLUMNS = ["fold_shift", "fold_shift_low", "fold_shift_high", "corrected_affinity_M", "kd_used_M", "simulated_as",
-                   "note", "min_incubation_s", "effective_incubation_s"]
+READING_COLUMNS = ["fold_shift", "fold_shift_low", "fold_shift_high", "corrected_affinity_M", "kd_used_M", "predicted_apparent_M",
+                   "simulated_as", "note", "min_incubation_s", "effective_incubation_s"]
 
 _T975 = {2: 12.706, 3: 4.303, 4: 3.182, 5: 2.776, 6: 2.571, 7: 2.447, 8: 2.365, 9: 2.306, 10: 2.262}  # Student t, 0.975, n-1 df (statistical tables)
 
@@ -339,6 +339,7 @@ def predict_readings(rows: pd.DataFrame, *, tolerance=1.25) -> pd.DataFrame:
     out["fold_shift_high"] = np.fmax(f_lo, f_hi)
     out["corrected_affinity_M"] = value / fold
     out["kd_used_M"] = kd_used
+    out["predicted_apparent_M"] = kd_used * fold  # what the assay should read after its incubation, given the kinetics
     out["simulated_as"] = np.where(comp, "competition", np.where(sat, "saturation", None))
     out["note"] = note
     out["min_incubation_s"] = t_min

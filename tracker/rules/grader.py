@@ -394,6 +394,11 @@ def _ki_shift_findings(no_rt: pd.DataFrame, fits: pd.DataFrame, comp: pd.DataFra
         if not ks.empty:
             ks["assay"] = "a saved Ki-shift fit"
             ks["source"] = "fit"
+            # a potency pair at the same two incubations as a saved fit of the compound is the same experiment:
+            # one finding, from the fit (it carries the interval)
+            same = pairs.merge(ks[["compound_id", "incubation_short_s", "incubation_long_s"]].drop_duplicates(),
+                               on=["compound_id", "incubation_short_s", "incubation_long_s"], how="left", indicator=True)
+            pairs = pairs[(same["_merge"] == "left_only").to_numpy()]
             pairs = pd.concat([pairs, ks], ignore_index=True)
     if pairs.empty:
         return [], set()

@@ -10,7 +10,9 @@ Score (design choice; the ranking is what matters, not the number)::
   leads by the advanced-lead stage at the latest);
 * grade rank: clear 0, low 1, moderate 2, high 3 (a measurement resolves
   inferred findings and duration checks that wait for kinetics);
-* uncertainty: 1 without a residence time, 0.6 when the stored residence time
+* uncertainty: 1 without a residence time, 0.8 when kinetic runs conflict
+  (design choice: the residence time may be off by more than the conflict
+  fold until a lead resolves it), 0.6 when the stored residence time
   is only a lower bound, 0.5 when its 95% interval spans more than 10-fold,
   else 0 (a precise measurement exists; the compound is not queued).
 
@@ -40,7 +42,7 @@ STAGE_WEIGHT: dict[str, float] = {
     "hit": 1.0, "hit-to-lead": 2.0, "lead-optimization": 4.0, "advanced-lead": 6.0, "candidate": 8.0, "clinical": 8.0,
 }
 WIDE_INTERVAL_FOLD = 10.0  # koff_high/koff_low above which the residence time counts as uncertain (design choice)
-UNCERTAINTY = {"unmeasured": 1.0, "lower-bound": 0.6, "wide-interval": 0.5}
+UNCERTAINTY = {"unmeasured": 1.0, "conflicting": 0.8, "lower-bound": 0.6, "wide-interval": 0.5}
 
 
 def rank_queue(result: GradeResult, portfolio: Portfolio) -> pd.DataFrame:
@@ -48,19 +50,19 @@ def rank_queue(result: GradeResult, portfolio: Portfolio) -> pd.DataFrame:
     comp = result.compounds.copy()
     if comp.empty:
         return pd.DataFrame(columns=["rank", "compound", "program", "series", "stage", "grade", "score", "uncertainty", "reason", "suggested_assay"])
-    kin = portfolio.kinetics
+    kin = result.kinetics  # the evidence model's kinetics: replicate runs combined, conflicts flagged
     status = pd.Series("unmeasured", index=comp["compound_id"])
     if kin is not None and not kin.empty:
-        k = kin[kin["id"].isin(comp["kinetic_measurement_id"].dropna().astype(int))].set_index("compound_id")
+        k = kin.set_index("compound_id")
         lo = k["koff_low_per_s"].astype(float)
         hi = k["koff_high_per_s"].astype(float)
         wide = (hi / lo) > WIDE_INTERVAL_FOLD
-        lower = pd.Series(False, index=k.index)
-        if "fit_json" in k.columns:
-            lower = k["fit_json"].fillna("").str.contains('"rt_is_lower_bound": *true', regex=True)
+        lower = k["rt_lower_bound"].astype(object).fillna(False).astype(bool)
+        conflict = k["conflict"].astype(object).fillna(False).astype(bool)
         measured = pd.Series("measured", index=k.index)
         measured[wide.fillna(False)] = "wide-interval"
         measured[lower] = "lower-bound"
+        measured[conflict] = "conflicting"
         status.loc[measured.index.intersection(status.index)] = measured
     comp["uncertainty"] = comp["compound_id"].map(status).to_numpy()
     u = comp["uncertainty"].map(UNCERTAINTY).fillna(0.0).to_numpy()
@@ -70,7 +72,8 @@ def rank_queue(result: GradeResult, portfolio: Portfolio) -> pd.DataFrame:
     comp = comp[comp["score"] > 0]
     comp["suggested_assay"] = comp["compound_id"].map(assay_suggestions(portfolio.potency, comp["compound_id"]))
     why = {"unmeasured": "no residence time measured", "lower-bound": "residence time only a lower bound",
-           "wide-interval": f"residence-time interval wider than {WIDE_INTERVAL_FOLD:g}-fold"}
+           "wide-interval": f"residence-time interval wider than {WIDE_INTERVAL_FOLD:g}-fold",
+           "conflicting": "kinetic runs conflict (resolve which stands)"}
     comp["reason"] = [
         f"{s}, grade {gr}; {why[un]}" + (f"; top finding: {tr}" if isinstance(tr, str) else "")
         for s, gr, un, tr in zip(comp["stage"], comp["grade"], comp["uncertainty"], comp["top_rule"])

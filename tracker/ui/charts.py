@@ -172,19 +172,17 @@ def incubation_grid(koff: float, incubations_s: Sequence[float] = ()) -> np.ndar
     return np.geomspace(lo, hi, 160)
 
 
-def apparent_affinity_frame(kd_M: float, koff: float, t_s: np.ndarray, **competition) -> pd.DataFrame:
-    """Predicted apparent affinity (nM) against incubation (h) for one compound.
+def apparent_affinity_frame(kd_M: float, koff: float, t_s: np.ndarray, reading: dict | None = None) -> pd.DataFrame:
+    """Predicted apparent affinity (nM) against incubation (h): the evidence model's curve in display units.
 
-    ``competition``: ``tracer_kd``, ``tracer_koff``, ``tracer_conc`` (SI) for the
-    competition model; empty for the saturation model.
+    ``reading``: a potency row whose format, tracer and pre-incubation set the
+    model (:func:`tracker.rules.evidence.affinity_curve`); None = one-step read.
     """
-    from ..kinetics.assay import apparent_affinity
+    from ..rules.evidence import affinity_curve
 
-    if competition:
-        res = apparent_affinity(kd_M, koff, t_s, format="competition", **competition)
-    else:
-        res = apparent_affinity(kd_M, koff, t_s)
-    return pd.DataFrame({"incubation_h": t_s / H, "apparent_nM": np.asarray(res.apparent) / NM, "fold": np.asarray(res.fold)})
+    c = affinity_curve(kd_M, koff, t_s, reading)
+    return pd.DataFrame({"incubation_h": c["incubation_s"].to_numpy() / H, "apparent_nM": c["apparent_M"].to_numpy() / NM,
+                         "fold": c["fold"].to_numpy(), "model": c["model"].to_numpy()})
 
 
 def apparent_affinity_chart(curve: pd.DataFrame, measured: pd.DataFrame, *, rt_h: float | None, kd_nM: float | None,

@@ -36,7 +36,7 @@ import streamlit as st
 from sqlalchemy import Engine, and_, func, literal, or_, select
 
 from ..db import queries
-from ..db.models import AuditEvent, Compound, KineticMeasurement, PKProfile, Potency, Program, TimeCourse, User
+from ..db.models import AuditEvent, Compound, PKProfile, Potency, Program, TimeCourse, User
 from ..db.session import database_url, make_engine
 from ..domain import STAGES
 
@@ -145,21 +145,6 @@ def _summary_select(flt: SummaryFilter):
             func.count().over(partition_by=Potency.compound_id).label("n_potency"),
         )
     ).subquery("best")
-    kin = (
-        select(
-            KineticMeasurement.compound_id,
-            KineticMeasurement.kon_per_M_s,
-            KineticMeasurement.koff_per_s,
-            KineticMeasurement.kd_M.label("kinetic_kd_M"),
-            KineticMeasurement.koff_low_per_s,
-            KineticMeasurement.koff_high_per_s,
-            KineticMeasurement.method.label("kinetic_method"),
-            func.row_number().over(
-                partition_by=KineticMeasurement.compound_id,
-                order_by=(KineticMeasurement.measured_on.desc().nulls_last(), KineticMeasurement.id.desc()),
-            ).label("rk"),
-        ).where(KineticMeasurement.superseded_by_id.is_(None))  # superseded values stay on record, not in the view
-    ).subquery("kin")
     pk = (
         select(
             PKProfile.compound_id,
@@ -178,13 +163,11 @@ def _summary_select(flt: SummaryFilter):
             best.c.best_potency_M, best.c.best_readout, best.c.best_assay, best.c.best_incubation_s, best.c.best_format,
             best.c.best_tracer_conc_M, best.c.best_tracer_kd_M, best.c.best_tracer_rt_s,
             func.coalesce(best.c.n_potency, 0).label("n_potency"),
-            kin.c.kon_per_M_s, kin.c.koff_per_s, kin.c.kinetic_kd_M, kin.c.koff_low_per_s, kin.c.koff_high_per_s, kin.c.kinetic_method,
             pk.c.pk_species,
             func.coalesce(pk.c.n_pk, 0).label("n_pk"),
         )
         .join(Program, Program.id == Compound.program_id)
         .outerjoin(best, and_(best.c.compound_id == Compound.id, best.c.rk == 1))
-        .outerjoin(kin, and_(kin.c.compound_id == Compound.id, kin.c.rk == 1))
         .outerjoin(pk, and_(pk.c.compound_id == Compound.id, pk.c.rk == 1))
     )
     if flt.program:
@@ -202,60 +185,22 @@ def _summary_select(flt: SummaryFilter):
 
 
 def read_compound_summary(engine: Engine, flt: SummaryFilter = SummaryFilter()) -> pd.DataFrame:
-    """One row per compound: identity, stage, best potency with its incubation, latest kinetics, PK count.
+    """One row per compound: identity, stage, best potency with its incubation, PK count (one SQL query).
 
-    Adds ``residence_time_s`` and ``predicted_fold`` (apparent/true affinity
-    predicted for the best potency at its incubation from the measured koff;
-    NaN without kinetics), computed vectorised.
+    Kinetic numbers (residence time, predicted folds, the worst reading) are not
+    computed here: they come from the grader's evidence model, merged in by
+    :func:`merge_portfolio`.
     """
     stmt = _summary_select(flt)
     with engine.connect() as conn:
         result = conn.execute(stmt)
         df = pd.DataFrame.from_records(result.all(), columns=list(result.keys()))
-    floats = ["best_potency_M", "best_incubation_s", "best_tracer_conc_M", "best_tracer_kd_M", "best_tracer_rt_s",
-              "kon_per_M_s", "koff_per_s", "kinetic_kd_M", "koff_low_per_s", "koff_high_per_s"]
+    floats = ["best_potency_M", "best_incubation_s", "best_tracer_conc_M", "best_tracer_kd_M", "best_tracer_rt_s"]
     for c in floats:
         df[c] = pd.to_numeric(df[c], errors="coerce").astype("float64")
     for c in ("n_potency", "n_pk"):
         df[c] = df[c].fillna(0).astype("int64")
-    df["residence_time_s"] = 1.0 / df["koff_per_s"]
-    df["predicted_fold"] = predicted_fold(
-        koff=df["koff_per_s"].to_numpy(), kon=df["kon_per_M_s"].to_numpy(), kd=df["kinetic_kd_M"].to_numpy(),
-        incubation=df["best_incubation_s"].to_numpy(), fmt=df["best_format"].to_numpy(object),
-        tracer_conc=df["best_tracer_conc_M"].to_numpy(), tracer_kd=df["best_tracer_kd_M"].to_numpy(),
-        tracer_rt=df["best_tracer_rt_s"].to_numpy(),
-    )
     return df
-
-
-def predicted_fold(*, koff, kon, kd, incubation, fmt, tracer_conc, tracer_kd, tracer_rt) -> np.ndarray:
-    """Apparent/true affinity predicted at each incubation (NaN where koff or incubation is missing).
-
-    Competition-binding rows with a complete tracer description use the
-    Motulsky-Mahan competition model (needs the compound's KD: ``kd`` or
-    koff/kon); every other row uses the saturation model, whose fold depends
-    on koff x incubation alone.  Vectorised over rows.
-    """
-    from ..kinetics.assay import apparent_affinity
-
-    koff = np.asarray(koff, float)
-    t = np.asarray(incubation, float)
-    kd_true = np.where(np.isfinite(np.asarray(kd, float)), np.asarray(kd, float), koff / np.asarray(kon, float))
-    out = np.full(koff.shape, np.nan)
-    ok = np.isfinite(koff) & (koff > 0) & np.isfinite(t) & (t > 0)
-    comp = ok & (np.asarray(fmt, object) == "competition-binding") & np.isfinite(np.asarray(tracer_conc, float)) \
-        & np.isfinite(np.asarray(tracer_kd, float)) & np.isfinite(np.asarray(tracer_rt, float)) & np.isfinite(kd_true) & (kd_true > 0)
-    sat = ok & ~comp
-    if sat.any():
-        kd_sat = np.where(np.isfinite(kd_true) & (kd_true > 0), kd_true, 1e-9)[sat]  # fold needs koff*t only
-        out[sat] = apparent_affinity(kd_sat, koff[sat], t[sat]).fold
-    if comp.any():
-        tk = np.asarray(tracer_kd, float)[comp]
-        out[comp] = apparent_affinity(
-            kd_true[comp], koff[comp], t[comp], format="competition", tracer_kd=tk,
-            tracer_koff=1.0 / np.asarray(tracer_rt, float)[comp], tracer_conc=np.asarray(tracer_conc, float)[comp],
-        ).fold
-    return out
 
 
 @st.cache_data(ttl=TTL_S, max_entries=MAX_ENTRIES, show_spinner=False)
@@ -264,17 +209,39 @@ def compound_summary(url: str, ver: tuple[int, int], flt: SummaryFilter) -> pd.D
 
 
 # ------------------------------------------------------------------ grading (helper services)
-def read_grades(engine: Engine, program: str | None = None) -> list[dict[str, Any]]:
-    """The grading service's list of ``{compound, program, series, stage, grade, findings}``."""
-    from ..services.grading import grade_portfolio
+def read_grading(engine: Engine, program: str | None = None):
+    """The grader's full result (:class:`tracker.rules.grader.GradeResult`): findings and the evidence model's numbers."""
+    from ..services.grading import grade_result
 
-    return grade_portfolio(engine, program=program)
+    return grade_result(engine, program)[0]
 
 
 @st.cache_data(ttl=TTL_S, max_entries=16, show_spinner="Grading the portfolio ...")
+def grading(url: str, ver: tuple[int, int], program: str | None = None):
+    """Graded portfolio, computed once per database version and program filter (every page reads this one)."""
+    return read_grading(get_engine(url), program)
+
+
+def read_grades(engine: Engine, program: str | None = None) -> list[dict[str, Any]]:
+    """The grading service's list of ``{compound, program, series, stage, grade, findings}``."""
+    return read_grading(engine, program).to_records()
+
+
 def grades(url: str, ver: tuple[int, int], program: str | None = None) -> list[dict[str, Any]]:
-    """Graded portfolio, computed once per database version and program filter."""
-    return read_grades(get_engine(url), program)
+    """The JSON contract of the cached grading (:func:`grading`)."""
+    return grading(url, ver, program).to_records()
+
+
+#: The evidence model's per-compound numbers the pages show (tracker.rules.evidence.summarise).
+EVIDENCE_COLUMNS = ["residence_time_s", "residence_time_low_s", "residence_time_high_s", "n_kinetic_runs", "kinetics_conflict",
+                    "worst_fold_shift", "worst_fold_shift_low", "worst_fold_shift_high", "worst_reading", "worst_potency_id"]
+
+
+def evidence_table(result) -> pd.DataFrame:
+    """``compound`` plus :data:`EVIDENCE_COLUMNS` from a grading result."""
+    c = result.compounds
+    cols = ["compound"] + [k for k in EVIDENCE_COLUMNS if k in c.columns]
+    return c[cols].copy() if len(c) else pd.DataFrame(columns=["compound"] + EVIDENCE_COLUMNS)
 
 
 def grade_table(graded: list[dict[str, Any]]) -> pd.DataFrame:
@@ -307,11 +274,17 @@ def findings_of(graded: list[dict[str, Any]], compound: str) -> dict[str, Any] |
     return None
 
 
-def merge_portfolio(summary: pd.DataFrame, graded: pd.DataFrame) -> pd.DataFrame:
-    """Summary rows with their grade columns (compounds the grader skipped stay, marked ungraded)."""
+def merge_portfolio(summary: pd.DataFrame, graded: pd.DataFrame, evidence: pd.DataFrame | None = None) -> pd.DataFrame:
+    """Summary rows with their grade columns and the evidence model's numbers (compounds the grader skipped stay,
+    marked ungraded)."""
     from .theme import grade_key, grade_label
 
     df = summary.merge(graded, on="compound", how="left")
+    ev = evidence if evidence is not None else pd.DataFrame(columns=["compound"] + EVIDENCE_COLUMNS)
+    df = df.merge(ev, on="compound", how="left")
+    for c in EVIDENCE_COLUMNS:
+        if c not in df.columns:
+            df[c] = np.nan
     keys = df["grade"].map(grade_key)
     df["grade_key"] = keys
     df["grade_label"] = df["grade"].map(grade_label)
@@ -325,8 +298,8 @@ def merge_portfolio(summary: pd.DataFrame, graded: pd.DataFrame) -> pd.DataFrame
 def portfolio(url: str, ver: tuple[int, int], flt: SummaryFilter) -> pd.DataFrame:
     """Filtered summary merged with the (separately cached) grades of the program."""
     summary = compound_summary(url, ver, flt)
-    graded = grade_table(grades(url, ver, flt.program))
-    return merge_portfolio(summary, graded)
+    result = grading(url, ver, flt.program)
+    return merge_portfolio(summary, grade_table(result.to_records()), evidence_table(result))
 
 
 # ------------------------------------------------------------------ one compound
@@ -427,17 +400,26 @@ def series_frames(url: str, ver: tuple[int, int], name: str):
 
 
 # ------------------------------------------------------------------ kinetic map
+def kinetic_points_of(result) -> pd.DataFrame:
+    """The evidence model's kinetics of every compound with kon and koff (combined runs), with series and stage."""
+    kin = result.kinetics
+    if kin is None or kin.empty:
+        return pd.DataFrame(columns=["compound", "series", "stage", "kon_per_M_s", "koff_per_s", "kd_M", "n_runs", "residence_time_s"])
+    kin = kin[np.isfinite(kin["kon_per_M_s"].astype(float)) & np.isfinite(kin["koff_per_s"].astype(float))]
+    comp = result.compounds[["compound_id", "compound", "series", "stage"]]
+    out = kin[["compound_id", "kon_per_M_s", "koff_per_s", "kd_M", "n_runs"]].merge(comp, on="compound_id", how="inner")
+    out["residence_time_s"] = 1.0 / out["koff_per_s"].astype(float)
+    return out.drop(columns="compound_id")
+
+
 def read_kinetic_points(engine: Engine, program: str | None = None) -> pd.DataFrame:
-    """Latest kinetics of every compound with both kon and koff measured, with series and stage."""
-    kin = queries.kinetics(engine, latest=True, program=program)
-    kin = kin[np.isfinite(kin["kon_per_M_s"]) & np.isfinite(kin["koff_per_s"])]
-    comp = queries.compounds(engine, program=program)[["name", "series", "stage"]].rename(columns={"name": "compound"})
-    return kin.merge(comp, on="compound", how="left")
+    """:func:`kinetic_points_of` a fresh grading."""
+    return kinetic_points_of(read_grading(engine, program))
 
 
 @st.cache_data(ttl=TTL_S, max_entries=MAX_ENTRIES, show_spinner=False)
 def kinetic_points(url: str, ver: tuple[int, int], program: str | None = None) -> pd.DataFrame:
-    return read_kinetic_points(get_engine(url), program)
+    return kinetic_points_of(grading(url, ver, program))
 
 
 # ------------------------------------------------------------------ audit
@@ -528,11 +510,11 @@ def finite(v: Any) -> float | None:
 
 __all__ = [
     "get_engine", "current_url", "version", "read_version", "clear_caches",
-    "SummaryFilter", "read_compound_summary", "compound_summary", "predicted_fold",
+    "SummaryFilter", "read_compound_summary", "compound_summary", "read_grading", "grading", "evidence_table", "EVIDENCE_COLUMNS",
     "read_grades", "grades", "grade_table", "merge_portfolio", "portfolio", "findings_of",
     "read_compound", "compound", "read_fits", "read_decisions", "decisions", "read_queue", "queue",
     "read_series_frames", "series_frames",
-    "read_kinetic_points", "kinetic_points",
+    "read_kinetic_points", "kinetic_points", "kinetic_points_of",
     "AuditFilter", "read_audit", "audit", "read_audit_choices", "audit_choices",
     "programs", "read_programs", "users", "read_users", "compound_names", "read_compound_names",
     "series_names", "read_series", "read_user_role", "finite",

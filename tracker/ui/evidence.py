@@ -1,9 +1,10 @@
 """A compound's evidence as display frames and charts (pure: no Streamlit, no database).
 
 The evidence page, the what-if page and the review pack all build their
-tables and charts here, from the dict :func:`tracker.ui.data.read_compound`
-returns (or an edited copy of it, for what-if).  Inputs are SI; outputs are
-display units (nM, h) with the unit in every column name and axis title.
+tables and charts here, from the grader's evidence model
+(:mod:`tracker.rules.evidence`, reached through a grading result): nothing
+kinetic is computed here, only converted to display units (nM, h) with the
+unit in every column name and axis title.
 """
 
 from __future__ import annotations
@@ -17,6 +18,9 @@ import numpy as np
 import pandas as pd
 
 from ..errors import KrtError
+from ..fmt import conc as fmt_conc
+from ..fmt import duration as fmt_time
+from ..fmt import fold as fmt_fold
 from . import charts
 
 NM = 1e-9
@@ -32,129 +36,129 @@ def _f(v: Any) -> float | None:
 
 
 @dataclass(frozen=True)
-class Kinetics:
-    """The kinetics the predictions use: koff, kon and KD (SI), and where each came from."""
+class CompoundEvidence:
+    """One compound's evidence exactly as the grader saw it (:func:`tracker.rules.evidence.compound_evidence`).
 
-    koff: float | None
-    kon: float | None
-    kd: float | None
-    source: str
+    ``summary``: the compound's row of the grading (grade, residence time with
+    interval, worst reading and its fold); ``kinetics``: the selected kinetics
+    (dict, None without a measured koff); ``runs``: every kinetic run;
+    ``readings``: the potency rows with the evidence model's predictions.
+    """
+
+    compound_id: int | None
+    summary: dict
+    kinetics: dict | None
+    runs: pd.DataFrame
+    readings: pd.DataFrame
+
+    @property
+    def koff(self) -> float | None:
+        return _f((self.kinetics or {}).get("koff_per_s"))
+
+    @property
+    def kon(self) -> float | None:
+        return _f((self.kinetics or {}).get("kon_per_M_s"))
+
+    @property
+    def kd(self) -> float | None:
+        return _f((self.kinetics or {}).get("kd_M"))
 
     @property
     def rt_s(self) -> float | None:
         return 1.0 / self.koff if self.koff else None
 
     @property
-    def complete(self) -> bool:
-        return self.koff is not None and self.kon is not None and self.kd is not None
+    def source(self) -> str:
+        k = self.kinetics
+        if not k:
+            return "no kinetic measurement"
+        n = int(k.get("n_runs") or 1)
+        ids = ", ".join(f"#{i}" for i in (k.get("kinetic_measurement_ids") or []))
+        basis = k.get("kinetics_basis") or "one run"
+        return f"{k.get('method')} ({basis}{'' if n == 1 else f' of {n}'}; measurement {ids})"
 
 
-def best_kinetics(kinetics: pd.DataFrame, potency: pd.DataFrame | None = None) -> Kinetics:
-    """The latest measured kinetics (undated rows count as oldest); KD = koff/kon, else the stored KD.
+def of(result, name: str) -> CompoundEvidence:
+    """The evidence of compound ``name`` in a grading result (empty when the grader did not see it)."""
+    from ..rules.evidence import compound_evidence
 
-    Without kon, KD falls back to the stored KD, then to the tightest potency
-    value projected to equilibrium with this koff (labelled as such).
-    """
-    if kinetics is None or kinetics.empty:
-        return Kinetics(None, None, None, "no kinetic measurement")
-    k = kinetics.copy()
-    k["_date"] = pd.to_datetime(k.get("measured_on"), errors="coerce")
-    k = k.sort_values(["_date", "id"], ascending=[True, True], na_position="first")
-    row = k.iloc[-1]
-    koff, kon, kd = _f(row.get("koff_per_s")), _f(row.get("kon_per_M_s")), _f(row.get("kd_M"))
-    source = f"{row.get('method')} measurement #{int(row['id'])}"
-    if koff and kon:
-        return Kinetics(koff, kon, koff / kon, source)
-    if koff and kd:
-        return Kinetics(koff, koff / kd, kd, source + " (kon = koff/KD)")
-    if koff and potency is not None and not potency.empty:
-        tab = potency_table(potency, Kinetics(koff, None, None, source))
-        eq = tab["equilibrium_nM"].dropna()
-        if not eq.empty:
-            kd = float(eq.min()) * NM
-            return Kinetics(koff, koff / kd, kd, source + " (KD from potency projected to equilibrium)")
-    return Kinetics(koff, kon, kd, source)
+    hit = result.compounds.loc[result.compounds["compound"] == name, "compound_id"] if len(result.compounds) else []
+    if len(hit) == 0:
+        return CompoundEvidence(None, {}, None, pd.DataFrame(), pd.DataFrame())
+    cid = int(hit.iloc[0])
+    ev = compound_evidence(result, cid)
+    return CompoundEvidence(cid, ev["summary"], ev["kinetics"], ev["runs"], ev["readings"])
 
 
-def _competition_args(row: pd.Series) -> dict[str, float] | None:
-    if row.get("format") != "competition-binding":
+def kinetics_caption(ev: CompoundEvidence) -> str:
+    """One line naming the kinetics the predictions use, with the residence time and its interval."""
+    if not ev.koff:
+        return "No residence time measured: predictions need koff, so only the measured values are shown."
+    s = ev.summary
+    lo, hi = _f(s.get("residence_time_low_s")), _f(s.get("residence_time_high_s"))
+    ci = f" (95% interval {fmt_time(lo)} – {fmt_time(hi)})" if lo and hi else ""
+    return f"Predictions use {ev.source}: residence time {fmt_time(ev.rt_s)}{ci}, KD {fmt_conc(ev.kd)}."
+
+
+POTENCY_DISPLAY = ["assay", "readout", "format", "value_nM", "incubation_h", "predicted_nM", "equilibrium_nM", "fold", "fold_ci",
+                   "min_incubation_h", "model", "value_text", "incubation_text"]
+
+
+def potency_table(ev: CompoundEvidence) -> pd.DataFrame:
+    """The readings with the evidence model's predictions, in display units (nothing computed here)."""
+    r = ev.readings
+    if r is None or r.empty:
+        return pd.DataFrame(columns=POTENCY_DISPLAY)
+
+    def col(name):
+        return pd.to_numeric(r[name], errors="coerce") if name in r.columns else pd.Series(np.nan, index=r.index)
+
+    lo, hi = col("fold_shift_low"), col("fold_shift_high")
+    return pd.DataFrame({
+        "assay": r["assay"], "readout": r["readout"], "format": r["format"],
+        "value_nM": col("value_M") / NM, "incubation_h": col("incubation_s") / H,
+        "predicted_nM": col("predicted_apparent_M") / NM, "equilibrium_nM": col("corrected_affinity_M") / NM,
+        "fold": col("fold_shift"),
+        "fold_ci": [f"{fmt_fold(a)} – {fmt_fold(b)}" if a == a and b == b else "–" for a, b in zip(lo, hi)],
+        "min_incubation_h": col("min_incubation_s") / H,
+        "model": r["simulated_as"].fillna("") if "simulated_as" in r.columns else "",
+        "value_text": r.get("value_text"), "incubation_text": r.get("incubation_text"),
+    }, columns=POTENCY_DISPLAY).reset_index(drop=True)
+
+
+def _reading_for_curve(readings: pd.DataFrame) -> dict | None:
+    """The reading whose format the curve follows: the first fully described competition reading, else None."""
+    if readings is None or readings.empty:
         return None
-    tc, tk, trt = _f(row.get("tracer_conc_M")), _f(row.get("tracer_kd_M")), _f(row.get("tracer_residence_time_s"))
-    if tc is None or tk is None or trt is None:
-        return None
-    return {"tracer_conc": tc, "tracer_kd": tk, "tracer_koff": 1.0 / trt}
+    comp = readings[(readings["format"] == "competition-binding") & (readings.get("simulated_as") == "competition")] \
+        if "simulated_as" in readings.columns else readings.iloc[0:0]
+    return comp.iloc[0].to_dict() if len(comp) else None
 
 
-def potency_table(potency: pd.DataFrame, kin: Kinetics) -> pd.DataFrame:
-    """Potency rows with the predicted apparent affinity at their incubation, the equilibrium projection and the fold.
+def affinity_chart(ev: CompoundEvidence, readings: pd.DataFrame | None = None, *, koff: float | None = None,
+                   kd: float | None = None) -> alt.Chart:
+    """Apparent affinity against incubation: the evidence model's curve, the compound's own readings, 2 x RT.
 
-    * ``predicted_nM``: what the assay should read after its incubation if the
-      compound's true KD is the kinetic one (needs KD and koff);
-    * ``equilibrium_nM``: the measured value divided by the predicted fold
-      (the affinity projected to equilibrium; needs koff);
-    * ``fold``: predicted apparent/true at that incubation.
-    Competition-binding rows with a full tracer description use the
-    competition model, others the saturation model.
+    ``readings``/``koff``/``kd`` replace the compound's own (the what-if page).
     """
-    from ..kinetics.assay import apparent_affinity
-
-    cols = ["assay", "readout", "format", "value_nM", "incubation_h", "predicted_nM", "equilibrium_nM", "fold", "model", "value_text", "incubation_text"]
-    if potency is None or potency.empty:
-        return pd.DataFrame(columns=cols)
-    rows = []
-    for _, r in potency.iterrows():  # a compound has a handful of potency rows
-        value, t = _f(r.get("value_M")), _f(r.get("incubation_s"))
-        out = {"assay": r.get("assay"), "readout": r.get("readout"), "format": r.get("format"),
-               "value_nM": value / NM if value else np.nan, "incubation_h": t / H if t else np.nan,
-               "predicted_nM": np.nan, "equilibrium_nM": np.nan, "fold": np.nan, "model": "",
-               "value_text": r.get("value_text"), "incubation_text": r.get("incubation_text")}
-        if kin.koff and t:
-            comp = _competition_args(r)
-            kd_for_model = kin.kd or (value if value else 1e-9)
-            try:
-                if comp and kin.kd:
-                    res = apparent_affinity(kin.kd, kin.koff, t, format="competition", **comp)
-                    out["model"] = "competition"
-                else:
-                    res = apparent_affinity(kd_for_model, kin.koff, t)
-                    out["model"] = "saturation"
-                fold = float(np.asarray(res.fold))
-                out["fold"] = fold
-                if value:
-                    out["equilibrium_nM"] = value / fold / NM
-                if kin.kd:
-                    out["predicted_nM"] = float(np.asarray(res.apparent)) / NM
-            except KrtError:
-                pass
-        rows.append(out)
-    return pd.DataFrame(rows, columns=cols)
-
-
-def affinity_chart(potency: pd.DataFrame, kin: Kinetics) -> alt.Chart:
-    """Apparent affinity against incubation: prediction from the kinetics, the compound's own assays, 2 x RT."""
+    pot = ev.readings if readings is None else readings
+    koff = ev.koff if koff is None else koff
+    kd = ev.kd if kd is None else kd
     measured = pd.DataFrame({
-        "incubation_h": potency["incubation_s"].astype(float) / H if not potency.empty else [],
-        "value_nM": potency["value_M"].astype(float) / NM if not potency.empty else [],
-        "assay": potency["assay"] if not potency.empty else [],
-        "readout": potency["readout"] if not potency.empty else [],
+        "incubation_h": pd.to_numeric(pot["incubation_s"], errors="coerce") / H if len(pot) else [],
+        "value_nM": pd.to_numeric(pot["value_M"], errors="coerce") / NM if len(pot) else [],
+        "assay": pot["assay"] if len(pot) else [],
+        "readout": pot["readout"] if len(pot) else [],
     })
     curve = pd.DataFrame(columns=["incubation_h", "apparent_nM", "fold"])
-    label = "predicted (saturation model)"
-    if kin.koff and kin.kd:
-        t = charts.incubation_grid(kin.koff, list(potency["incubation_s"].astype(float)) if not potency.empty else [])
-        comp = None
-        if not potency.empty:
-            for _, r in potency.iterrows():
-                comp = _competition_args(r)
-                if comp:
-                    break
-        if comp:
-            curve = charts.apparent_affinity_frame(kin.kd, kin.koff, t, **comp)
-            label = "predicted (competition model, this tracer)"
-        else:
-            curve = charts.apparent_affinity_frame(kin.kd, kin.koff, t)
-    rt_h = kin.rt_s / H if kin.rt_s else None
-    kd_nM = kin.kd / NM if kin.kd else None
+    label = "predicted (one-step read)"
+    if koff and kd:
+        t = charts.incubation_grid(koff, list(pd.to_numeric(pot["incubation_s"], errors="coerce").dropna()) if len(pot) else [])
+        reading = _reading_for_curve(pot)
+        curve = charts.apparent_affinity_frame(kd, koff, t, reading)
+        label = f"predicted ({curve['model'].iloc[0]})" if len(curve) else label
+    rt_h = 1.0 / koff / H if koff else None
+    kd_nM = kd / NM if kd else None
     return charts.apparent_affinity_chart(curve, measured, rt_h=rt_h, kd_nM=kd_nM, model_label=label)
 
 
@@ -166,65 +170,26 @@ def pk_label(row: pd.Series) -> str:
     return " · ".join(p for p in parts if p and p != "None")
 
 
-@dataclass(frozen=True)
-class PKInput:
-    route: str
-    cmax: float
-    half_life: float
-    tmax: float | None
-    dosing_interval: float | None
+def engagement(result, compound_id: int | None, *, n_doses: int | None = None) -> dict | None:
+    """The engagement the duration check simulated for this compound (:func:`tracker.rules.evidence.engagement_summary`)."""
+    from ..rules.evidence import engagement_summary
 
-    @classmethod
-    def from_row(cls, row: pd.Series, program: dict | None = None) -> "PKInput":
-        tau = _f(row.get("dosing_interval_s")) or (_f((program or {}).get("dosing_interval_s")))
-        return cls(route=str(row["route"]), cmax=float(row["free_cmax_M"]), half_life=float(row["half_life_s"]),
-                   tmax=_f(row.get("tmax_s")), dosing_interval=tau)
+    if compound_id is None:
+        return None
+    return engagement_summary(result, compound_id, n_doses=n_doses)
 
 
-def judged_engagement(kin: Kinetics, pk: PKInput, program: dict | None = None, *, config=None, series: bool = True,
-                      max_points: int = 700) -> dict:
-    """The engagement the ``duration-mismatch`` rule judges, for one compound under one PK profile.
-
-    Regimen, threshold and numbers come from
-    :func:`tracker.rules.engagement.compound_engagement` (the grader's own
-    function): one dose, or with a dosing interval (the program's, else the
-    PK study's) the regimen at steady state.  ``config``: the program's
-    :class:`~tracker.rules.config.RuleConfig` (default: the shipped defaults).
-    """
-    from ..rules.config import DEFAULTS
-    from ..rules.engagement import compound_engagement
-
-    if not (kin.koff and kin.kon):
-        raise KrtError("engagement needs koff and kon (or KD)")
-    if pk.route == "oral" and pk.tmax is None:
-        raise KrtError("oral PK needs tmax")
-    cfg = config or DEFAULTS
-    pk_row = {"route": pk.route, "free_cmax_M": pk.cmax, "half_life_s": pk.half_life, "tmax_s": pk.tmax,
-              "dosing_interval_s": pk.dosing_interval}
-    return compound_engagement(kin.kon, kin.koff, pk_row, program or {}, default_threshold=cfg.default_engagement_threshold,
-                               bound_degradation_factor=cfg.bound_target_degradation_factor, series=series, max_points=max_points)
+def engagement_regimen(eng: dict) -> str:
+    """The regimen the duration check judged, in words (the tiles and the chart show the same)."""
+    reg = f"{eng['regimen']} · {eng['route']}, free Cmax {fmt_conc(eng['cmax'])}, t½ {fmt_time(eng['half_life'])}"
+    thr = f"threshold {100 * eng['threshold']:.0f}%" + (" (rules default; the program sets none)" if eng["threshold_is_default"] else "")
+    return f"{reg}; {thr}"
 
 
-def engagement(kin: Kinetics, pk: PKInput, *, program: dict | None = None, config=None, max_points: int = 700) -> dict:
-    """Engagement time series (SI arrays) of the judged regimen (see :func:`judged_engagement`)."""
-    return judged_engagement(kin, pk, program, config=config, max_points=max_points)["timeseries"]
-
-
-def engagement_metrics(kin: Kinetics, pk: PKInput, program: dict | None = None, *, config=None) -> dict[str, Any]:
-    """The judged numbers (NaN -> None) with ``regimen``, ``threshold`` and ``duration_set_by``."""
-    res = judged_engagement(kin, pk, program, config=config, series=False)
-    return {k: (None if isinstance(v, float) and not math.isfinite(v) else v) for k, v in res.items()}
-
-
-def engagement_chart(kin: Kinetics, pk: PKInput, program: dict, *, config=None, judged: dict | None = None) -> alt.Chart:
-    """The judged regimen against time: one dose, or a steady-state interval then the last dose and the washout.
-
-    ``judged``: a :func:`judged_engagement` result already at hand (not recomputed)."""
-    res = judged if judged is not None else judged_engagement(kin, pk, program, config=config)
-    thr = res["threshold"]
-    frame = charts.engagement_frame(res["timeseries"])
+def engagement_chart(eng: dict, program: dict) -> alt.Chart:
+    frame = charts.engagement_frame(eng["series"])
     h = lambda k: (_f(program.get(k)) / H) if _f(program.get(k)) else None  # noqa: E731
-    return charts.engagement_chart(frame, threshold=thr, onset_max_h=h("onset_max_s"), offset_max_h=h("offset_max_s"),
+    return charts.engagement_chart(frame, threshold=eng["threshold"], onset_max_h=h("onset_max_s"), offset_max_h=h("offset_max_s"),
                                    duration_min_h=h("duration_min_s"))
 
 
@@ -282,5 +247,5 @@ def fit_summary(res) -> dict[str, str]:
     return out
 
 
-__all__ = ["Kinetics", "best_kinetics", "potency_table", "affinity_chart", "PKInput", "pk_label", "engagement",
-           "engagement_metrics", "engagement_chart", "judged_engagement", "fit_charts", "fit_summary"]
+__all__ = ["CompoundEvidence", "of", "kinetics_caption", "potency_table", "affinity_chart", "pk_label", "engagement",
+           "engagement_regimen", "engagement_chart", "fit_charts", "fit_summary"]

@@ -33,6 +33,7 @@ from sqlalchemy import Engine
 
 from ..fmt import conc as fmt_conc
 from ..fmt import duration as fmt_time
+from ..fmt import fold as fmt_fold
 from . import charts, data, evidence, theme
 from .widgets import rule_title
 
@@ -179,11 +180,13 @@ def _potency_html(table: pd.DataFrame) -> str:
 
     rows = "".join(
         f"<tr><td>{_e(r.assay)}</td><td>{_e(r.readout)}</td><td>{n(r.value_nM)}</td><td>{n(r.incubation_h)}</td>"
-        f"<td>{n(r.predicted_nM)}</td><td>{n(r.equilibrium_nM)}</td><td>{'–' if r.fold != r.fold else f'{r.fold:.2f}×'}</td></tr>"
+        f"<td>{n(r.predicted_nM)}</td><td>{n(r.equilibrium_nM)}</td><td>{'–' if r.fold != r.fold else fmt_fold(r.fold)}</td>"
+        f"<td>{_e(r.fold_ci)}</td></tr>"
         for r in table.itertuples(index=False)
     )
     return ("<table><tr><th>Assay</th><th>Readout</th><th>Measured (nM)</th><th>Incubation (h)</th>"
-            "<th>Predicted apparent (nM)</th><th>Projected true (nM)</th><th>Fold shift</th></tr>" + rows + "</table>")
+            "<th>Predicted apparent (nM)</th><th>Projected true (nM)</th><th>Fold shift</th><th>Fold 95% interval</th></tr>"
+            + rows + "</table>")
 
 
 def _brief_section(row: Any, graded: dict[str, Any]) -> str:
@@ -193,29 +196,30 @@ def _brief_section(row: Any, graded: dict[str, Any]) -> str:
             + _findings_html(graded.get("findings") or []) + "</div>")
 
 
-def _compound_section(engine: Engine, name: str, graded: dict[str, Any], with_charts: bool) -> str:
+def _compound_section(engine: Engine, name: str, graded: dict[str, Any], with_charts: bool, result) -> str:
     info = data.read_compound(engine, name)
     comp, program = info["compound"], info["program"]
-    kin = evidence.best_kinetics(info["kinetics"], info["potency"])
+    ev = evidence.of(result, name)
     parts = [f'<div class="compound"><h3 id="{html.escape(name)}">{_e(name)} {_badge(graded.get("grade"))}</h3>',
              f'<p class="meta">{_e(comp["program"])} · series {_e(comp.get("series"))} · stage {_e(comp["stage"])} · '
-             f'kinetics: {_e(kin.source)}'
-             + (f" · residence time {_e(fmt_time(kin.rt_s))}" if kin.rt_s else "") + "</p>",
+             f'kinetics: {_e(ev.source)}'
+             + (f" · residence time {_e(fmt_time(ev.rt_s))}" if ev.rt_s else "")
+             + (f" · worst reading {_e(ev.summary.get('worst_reading'))} ({_e(fmt_fold(ev.summary.get('worst_fold_shift')))})"
+                if isinstance(ev.summary.get("worst_reading"), str) else "") + "</p>",
              _findings_html(graded.get("findings") or [])]
-    table = evidence.potency_table(info["potency"], kin)
+    table = evidence.potency_table(ev)
     parts.append(_potency_html(table))
     if with_charts:
-        if not info["potency"].empty or kin.koff:
-            parts.append(_img(evidence.affinity_chart(info["potency"], kin).properties(width=620),
+        if not ev.readings.empty or ev.koff:
+            parts.append(_img(evidence.affinity_chart(ev).properties(width=620),
                               f"{name}: apparent affinity against incubation time"))
-        if kin.koff and kin.kon and not info["pk"].empty:
-            pk_in = evidence.PKInput.from_row(info["pk"].iloc[-1], program)
+        if ev.koff and not info["pk"].empty:
             try:
-                judged = evidence.judged_engagement(kin, pk_in, program)
-                chart = evidence.engagement_chart(kin, pk_in, program, judged=judged).properties(width=620)
-                parts.append(f'<p class="meta">Engagement under PK: {_e(evidence.pk_label(info["pk"].iloc[-1]))}, '
-                             f'{_e(judged["regimen"])}</p>')
-                parts.append(_img(chart, f"{name}: target engagement against time"))
+                eng = evidence.engagement(result, ev.compound_id)
+                if eng is not None:
+                    chart = evidence.engagement_chart(eng, program).properties(width=620)
+                    parts.append(f'<p class="meta">Engagement under PK: {_e(evidence.engagement_regimen(eng))}</p>')
+                    parts.append(_img(chart, f"{name}: target engagement against time"))
             except Exception as exc:  # a PK row the simulation refuses: say so, keep the pack
                 parts.append(f'<p class="meta">Engagement not simulated: {_e(" ".join(str(exc).split()))}</p>')
         for title, chart, summary in evidence.fit_charts(info["fits"]):
@@ -235,33 +239,37 @@ def build_pack(
     graded: list[dict[str, Any]] | None = None,
     with_charts: bool = True,
     progress: Callable[[int, int], None] | None = None,
+    result: Any = None,
 ) -> str:
     """The pack as one HTML string (see the module docstring).
 
     ``compounds`` narrows to those names (within ``program`` if given);
-    ``graded`` reuses an already computed grading (the service's list);
+    ``graded`` reuses an already computed grading (the service's list) and
+    ``result`` the grader's full result it came from (the evidence model's numbers);
     ``progress(done, total)`` is called as the charts are rendered.
     """
     pending = _Charts()
     token = _charts.set(pending)
     try:
         text = _assemble(engine, program=program, compounds=compounds, author=author, graded=graded,
-                         with_charts=with_charts)
+                         with_charts=with_charts, result=result)
     finally:
         _charts.reset(token)
     return pending.render(text, progress)
 
 
 def _assemble(engine: Engine, *, program: str | None, compounds: Iterable[str] | None, author: str,
-              graded: list[dict[str, Any]] | None, with_charts: bool) -> str:
+              graded: list[dict[str, Any]] | None, with_charts: bool, result: Any = None) -> str:
     from ..db.audit import chain_head
     from ..db.uow import UnitOfWork
 
     names = None if compounds is None else list(compounds)
     summary = data.read_compound_summary(engine, data.SummaryFilter(program=program, compounds=tuple(names or ())))
+    if result is None:
+        result = data.read_grading(engine, program)
     if graded is None:
-        graded = data.read_grades(engine, program)
-    rows = data.merge_portfolio(summary, data.grade_table(graded))
+        graded = result.to_records()
+    rows = data.merge_portfolio(summary, data.grade_table(graded), data.evidence_table(result))
     rows = rows.sort_values(["grade_rank", "stage_rank", "compound"], ascending=[True, False, True]).reset_index(drop=True)
     by_name = {g["compound"]: g for g in graded}
     with UnitOfWork(engine, write=False) as uow:
@@ -292,9 +300,9 @@ def _assemble(engine: Engine, *, program: str | None, compounds: Iterable[str] |
     detailed = len(rows) <= MAX_CHART_COMPOUNDS  # beyond that: findings only, no per-compound queries or charts
     for row in rows.itertuples(index=False):
         g = by_name.get(row.compound, {})
-        parts.append(_compound_section(engine, row.compound, g, charted) if detailed else _brief_section(row, g))
+        parts.append(_compound_section(engine, row.compound, g, charted, result) if detailed else _brief_section(row, g))
     parts.append("<p class='meta'>Apparent-affinity predictions assume one binding site without depletion; engagement assumes "
-                 "free drug and no target turnover. " + html.escape(" ".join(theme.SAFETY_POINTS)) + "</p>")
+                 "free drug. " + html.escape(" ".join(theme.SAFETY_POINTS)) + "</p>")
     parts.append("</body></html>")
     return "".join(parts)
 

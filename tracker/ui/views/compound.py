@@ -19,7 +19,10 @@ POTENCY_COLUMNS = {
                                                 help="What this assay should read after its incubation, given the measured kinetics"),
     "equilibrium_nM": st.column_config.TextColumn("Projected true",
                                                   help="The measured value corrected to equilibrium with the measured residence time"),
-    "fold": st.column_config.TextColumn("Fold shift", help="Predicted apparent / true affinity at this incubation"),
+    "fold": st.column_config.TextColumn("Fold shift", help="Predicted apparent / true affinity at this incubation (below 1: reads too potent)"),
+    "fold_ci": st.column_config.TextColumn("Fold 95% interval", help="From the 95% interval of the residence time"),
+    "min_incubation_h": st.column_config.TextColumn("Reads true after",
+                                                    help="Shortest incubation that reads within the fold tolerance, in this format"),
     "model": st.column_config.TextColumn("Model", width="small"),
 }
 
@@ -31,6 +34,7 @@ def potency_display(table: pd.DataFrame) -> pd.DataFrame:
         out[col] = [widgets.conc(v * 1e-9) for v in table[col]]
     out["incubation_h"] = [widgets.dur(v * 3600.0) for v in table["incubation_h"]]
     out["fold"] = [widgets.fold(v) for v in table["fold"]]
+    out["min_incubation_h"] = [widgets.dur(v * 3600.0) for v in table["min_incubation_h"]]
     return out
 
 
@@ -125,13 +129,15 @@ def render() -> None:
     st.subheader("Findings")
     widgets.findings_list(graded.get("findings") or [])
 
-    kin = evidence.best_kinetics(info["kinetics"], info["potency"])
+    result = data.grading(ctx.url, ctx.version, ctx.program)
+    ev = evidence.of(result, name)
+    worst = ev.summary.get("worst_reading")
+    if isinstance(worst, str):
+        st.markdown(f"**Worst reading:** {worst}, predicted to read {widgets.fold(ev.summary.get('worst_fold_shift'))} "
+                    f"its true value.")
     st.subheader("Potency and what the kinetics predict")
-    if kin.koff:
-        st.caption(f"Predictions use {kin.source}: residence time {widgets.dur(kin.rt_s)}, KD {widgets.conc(kin.kd)}.")
-    else:
-        st.caption("No residence time measured: predictions need koff, so only the measured values are shown.")
-    table = evidence.potency_table(info["potency"], kin)
+    st.caption(evidence.kinetics_caption(ev))
+    table = evidence.potency_table(ev)
     if table.empty:
         st.info("No potency values on record.")
     else:
@@ -139,15 +145,17 @@ def render() -> None:
 
     if not info["kinetics"].empty:
         st.markdown("**Kinetic measurements**")
+        if ev.kinetics and int(ev.kinetics.get("n_runs") or 1) > 1:
+            st.caption(f"{int(ev.kinetics['n_runs'])} runs: {ev.kinetics.get('kinetics_basis')}.")
         st.dataframe(kinetics_frame(info["kinetics"]), hide_index=True, placeholder="–", width="stretch")
 
     st.subheader("Apparent affinity against incubation time")
     st.caption("The curve is what an assay would report after each incubation if the compound has the measured kinetics; "
                "diamonds are this compound's own assays. Read potency only to the right of the 2 × RT line.")
-    if table.empty and not kin.koff:
+    if table.empty and not ev.koff:
         st.info("Nothing to plot: no potency values and no kinetics.")
     else:
-        st.altair_chart(evidence.affinity_chart(info["potency"], kin), width="stretch")
+        st.altair_chart(evidence.affinity_chart(ev), width="stretch")
 
     st.subheader("Stored fits")
     fits = evidence.fit_charts(info["fits"])
@@ -164,35 +172,28 @@ def render() -> None:
                 st.markdown(f"**{widgets.md(k)}:** {widgets.md(v)}")
 
     st.subheader("Target engagement under PK")
-    _engagement(info, kin, program, graded.get("findings") or [])
+    _engagement(info, result, ev, program)
 
 
-def _engagement(info: dict, kin: evidence.Kinetics, program: dict, findings: list | None = None) -> None:
-    pk = info["pk"]
-    if pk.empty:
+def _engagement(info: dict, result, ev: evidence.CompoundEvidence, program: dict) -> None:
+    if info["pk"].empty:
         st.info("No PK profile on record: engagement under PK cannot be simulated.")
         return
-    if not (kin.koff and kin.kon):
+    if not ev.koff:
         st.info("No residence time (koff) measured: engagement cannot be simulated with binding kinetics.")
         return
-    labels = [evidence.pk_label(r) for _, r in pk.iterrows()]
-    # start on the PK profile the duration-mismatch rule used, so the tiles show what the finding judged
-    used = [(f.get("data") or {}).get("pk_id") for f in (findings or []) if f.get("rule") == "duration-mismatch"]
-    ids = [int(v) if v == v else None for v in pk["id"]] if "id" in pk.columns else []
-    start = ids.index(int(used[0])) if used and used[0] is not None and int(used[0]) in ids else 0
-    choice = st.selectbox("PK profile", range(len(labels)), index=start, format_func=lambda i: labels[i], key="ce_pk")
-    pk_in = evidence.PKInput.from_row(pk.iloc[choice], program)
     try:
-        judged = evidence.judged_engagement(kin, pk_in, program)
-        chart = evidence.engagement_chart(kin, pk_in, program, judged=judged)
+        eng = evidence.engagement(result, ev.compound_id)  # the PK row, regimen and numbers the duration check judged
     except KrtError as exc:
         st.error(widgets.md(widgets.one_line(exc)))
         return
-    m = {k: (None if isinstance(v, float) and v != v else v) for k, v in judged.items()}
-    steady = m["dosing_interval_s"] is not None
-    st.markdown(f"**Regimen judged:** {m['regimen']} · threshold {fmt.pct(m['threshold'])}"
-                + (" (default; the program sets none)" if m["threshold_is_default"] else ""))
-    st.altair_chart(chart, width="stretch")
+    if eng is None:
+        st.info("Engagement needs kon (or KD) and a complete PK profile (free Cmax, half-life, tmax for oral dosing).")
+        return
+    m = eng["metrics"]
+    steady = eng["dosing_interval"] is not None
+    st.markdown(f"**Regimen judged:** {evidence.engagement_regimen(eng)}")
+    st.altair_chart(evidence.engagement_chart(eng, program), width="stretch")
     cols = st.columns(5 if steady else 4)
     cols[0].metric("Onset (threshold reached)", widgets.dur(m["onset_s"]))
     cols[1].metric("Offset (after the last dose)" if steady else "Offset (last time above)", widgets.dur(m["offset_s"]))
@@ -201,14 +202,14 @@ def _engagement(info: dict, kin: evidence.Kinetics, program: dict, findings: lis
     cols[3].metric("Peak engagement (steady state)" if steady else "Peak engagement", fmt.pct(m["peak_occupancy"], missing="–"))
     if steady:
         cols[4].metric("Trough (steady state)", fmt.pct(m["trough_occupancy"], missing="–"))
-    if m["target_half_life_s"] is not None:
-        turnover = f"target turnover with t½ {widgets.dur(m['target_half_life_s'])}"
-        if m["duration_set_by"] == "turnover":
+    if eng.get("target_half_life") is not None:
+        turnover = f"target turnover with t½ {widgets.dur(eng['target_half_life'])}"
+        if eng.get("duration_set_by") == "turnover":
             turnover += " (turnover, not dissociation, sets the duration)"
     else:
         turnover = "no target turnover (the program gives no target half-life)"
-    st.caption(f"Kinetics: {kin.source}. Free drug, one binding site, {turnover}. The same regimen and numbers as the "
-               "duration-mismatch rule. Simulations are decision support, not dosing advice.")
+    st.caption(f"Kinetics: {ev.source}. Free drug, one binding site, {turnover}. The same kinetics, PK, regimen and numbers "
+               "as the duration-mismatch rule. Simulations are decision support, not dosing advice.")
 
 
 if __name__ == "__main__":

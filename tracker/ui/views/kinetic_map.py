@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 
-import numpy as np
 import pandas as pd
 import streamlit as st
 
@@ -25,27 +24,22 @@ def map_points(kin: pd.DataFrame, graded: pd.DataFrame) -> pd.DataFrame:
         "grade_label": df["grade"].map(theme.grade_label),
         "kon": df["kon_per_M_s"].astype(float),
         "koff": df["koff_per_s"].astype(float),
-        "rt_text": [widgets.dur(1.0 / k) for k in df["koff_per_s"]],
-        "kd_nM": (df["koff_per_s"] / df["kon_per_M_s"]) / 1e-9,
+        "rt_text": [widgets.dur(v) for v in df["residence_time_s"]],
+        "kd_nM": df["kd_M"].astype(float) / 1e-9,
     })
 
 
 def series_floor(points: pd.DataFrame, series: str, incubation_s: float) -> tuple[float | None, float | None, int]:
-    """``(floor KD in M, median kon, n)`` for a series: ln2/(kon t) with the series' median measured kon."""
-    from tracker.kinetics.assay import assay_floor
+    """``(floor KD in M, median kon, n)`` for a series (the evidence model's floor, :func:`tracker.rules.evidence.floor_of_series`)."""
+    from tracker.rules.evidence import floor_of_series
 
-    kons = points.loc[points["series"] == series, "kon"].to_numpy(float)
-    kons = kons[np.isfinite(kons) & (kons > 0)]
-    if kons.size == 0:
-        return None, None, 0
-    kon = float(np.median(kons))
-    return float(assay_floor(kon, incubation_s)), kon, int(kons.size)
+    return floor_of_series(points.loc[points["series"] == series, "kon"].to_numpy(float), incubation_s)
 
 
 def render() -> None:
     ctx = context()
     st.title("Kinetic map")
-    st.caption("Each point is a compound's latest measured kon and koff. Diagonals join equal affinity (KD = koff/kon); "
+    st.caption("Each point is a compound's kon and koff as the grader uses them (replicate runs combined). Diagonals join equal affinity (KD = koff/kon); "
                "vertical dotted lines join equal residence time (RT = 1/koff). Left is slower dissociation.")
     kin = data.kinetic_points(ctx.url, ctx.version, ctx.program)
     if kin.empty:

@@ -19,7 +19,7 @@ SORTS = {
     "Stage (latest first)": (["stage_rank", "grade_rank", "compound"], [False, True, True]),
     "Compound": (["compound"], [True]),
     "Residence time (longest first)": (["residence_time_s", "compound"], [False, True]),
-    "Predicted fold shift (largest first)": (["predicted_fold", "compound"], [False, True]),
+    "Worst predicted fold (largest first)": (["worst_fold_shift", "compound"], [False, True]),
     "Best potency (tightest first)": (["best_potency_M", "compound"], [True, True]),
 }
 
@@ -45,7 +45,8 @@ def display_frame(df: pd.DataFrame) -> pd.DataFrame:
         "RT (h)": df["residence_time_s"] / 3600.0,
         "Best potency (nM)": df["best_potency_M"] / 1e-9,
         "Readout @ incubation": [_readout(r, t) for r, t in zip(df["best_readout"], inc)],
-        "Fold shift (pred.)": df["predicted_fold"],
+        "Worst fold (pred.)": df["worst_fold_shift"],
+        "Worst reading": df["worst_reading"].fillna("–"),
         "Findings": df["n_findings"],
     })
 
@@ -79,10 +80,13 @@ COLUMN_CONFIG = {
     "Compound": st.column_config.TextColumn(width="small", pinned=True),
     "Grade": st.column_config.TextColumn(width="medium"),
     "Top finding": st.column_config.TextColumn(width="large"),
-    "RT (h)": st.column_config.NumberColumn(format="%.3g", help="Residence time 1/koff of the latest kinetic measurement, hours"),
+    "RT (h)": st.column_config.NumberColumn(format="%.3g", help="Residence time 1/koff as the grader uses it (runs combined; "
+                                            "conflicting runs: the longest), hours"),
     "Best potency (nM)": st.column_config.NumberColumn(format="%.3g", help="Tightest potency value on record, nM"),
-    "Fold shift (pred.)": st.column_config.NumberColumn(
-        format="%.2f×", help="Apparent / true affinity predicted for the best potency at its incubation, from the measured residence time"),
+    "Worst fold (pred.)": st.column_config.NumberColumn(
+        format="%.3g×", help="Apparent / true affinity predicted for the compound's worst reading (farthest from 1 either way), "
+                             "from the residence time; the grader's number"),
+    "Worst reading": st.column_config.TextColumn(width="medium", help="Which reading the worst fold belongs to"),
     "Findings": st.column_config.NumberColumn(format="%d", width="small"),
 }
 

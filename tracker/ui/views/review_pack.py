@@ -32,9 +32,9 @@ def render() -> None:
     if st.button("Build pack", type="primary", key="pack_build", icon=":material/description:"):
         bar = st.progress(0.0, text="Gathering the evidence ...")
         author = ctx.identity.name if ctx.identity else ""
-        graded = data.grades(ctx.url, ctx.version, ctx.program)
+        result = data.grading(ctx.url, ctx.version, ctx.program)
         text = review_pack.build_pack(
-            ctx.engine, program=ctx.program, compounds=picked or None, author=author, graded=graded,
+            ctx.engine, program=ctx.program, compounds=picked or None, author=author, graded=result.to_records(), result=result,
             with_charts=with_charts, progress=lambda done, total: bar.progress(done / total, text=f"Rendering chart {done} of {total}"))
         bar.empty()
         label = ", ".join(picked[:3]) + (" …" if len(picked) > 3 else "") if picked else scope

@@ -50,11 +50,12 @@ class Scenario:
     pk_interval_s: float | None
 
 
-def stored_scenario(portfolio, cid: int) -> Scenario:
-    """The compound's stored values as a starting point."""
-    kin = portfolio.kinetics[portfolio.kinetics["compound_id"] == cid]
-    kin = kin[pd.to_numeric(kin["koff_per_s"], errors="coerce") > 0]
-    k = evidence.best_kinetics(kin, portfolio.potency[portfolio.potency["compound_id"] == cid]) if not kin.empty else None
+def stored_scenario(portfolio, cid: int, configs=None, versions=None) -> Scenario:
+    """The compound's stored values as a starting point (kinetics as the grader's evidence model selects them)."""
+    from tracker.rules.grader import grade_frames
+
+    name = portfolio.compounds.loc[portfolio.compounds["id"] == cid, "name"].iloc[0]
+    k = evidence.of(grade_frames(portfolio, configs, versions), name)
     pot = portfolio.potency[portfolio.potency["compound_id"] == cid]
     best = pot.sort_values(["incubation_s", "id"]).iloc[0] if not pot.empty else None  # the shortest read: most at risk
     inc = float(best["incubation_s"]) if best is not None else None
@@ -68,7 +69,7 @@ def stored_scenario(portfolio, cid: int) -> Scenario:
         tmax = float(r["tmax_s"]) if pd.notna(r.get("tmax_s")) else None
         tau = float(r["dosing_interval_s"]) if pd.notna(r.get("dosing_interval_s")) else None
     return Scenario(
-        rt_s=(k.rt_s if k and k.koff else None), kon=(k.kon if k and k.kon else None), incubation_s=inc, potency_id=pid,
+        rt_s=(k.rt_s if k.koff else None), kon=(k.kon if k.kon else None), incubation_s=inc, potency_id=pid,
         pk_route=route, pk_half_life_s=hl, pk_cmax_M=cmax, pk_tmax_s=tmax, pk_interval_s=tau,
     )
 
@@ -109,11 +110,16 @@ def apply(portfolio, cid: int, s: Scenario, base: Scenario):
                      time_courses=tcs)
 
 
-def grade_scenario(portfolio, configs, versions, cid: int, s: Scenario, base: Scenario) -> dict:
-    """The compound's grading entry under scenario ``s`` (pure: the grader on edited frames)."""
+def scenario_result(portfolio, configs, versions, cid: int, s: Scenario, base: Scenario):
+    """The grader's full result under scenario ``s`` (pure: the grader on edited frames)."""
     from tracker.rules.grader import grade_frames
 
-    result = grade_frames(apply(portfolio, cid, s, base), configs, versions)
+    return grade_frames(apply(portfolio, cid, s, base), configs, versions)
+
+
+def grade_scenario(portfolio, configs, versions, cid: int, s: Scenario, base: Scenario) -> dict:
+    """The compound's grading entry under scenario ``s``."""
+    result = scenario_result(portfolio, configs, versions, cid, s, base)
     name = portfolio.compounds.loc[portfolio.compounds["id"] == cid, "name"].iloc[0]
     return next(e for e in result.to_records() if e["compound"] == name)
 
@@ -132,7 +138,7 @@ def render() -> None:
     except KrtError as exc:
         st.error(widgets.md(widgets.one_line(exc)))
         return
-    base = stored_scenario(portfolio, cid)
+    base = stored_scenario(portfolio, cid, configs, versions)
     program = portfolio.programs[portfolio.programs["name"] == portfolio.compounds.loc[portfolio.compounds["id"] == cid, "program"].iloc[0]]
     program = program.iloc[0].to_dict() if not program.empty else {}
     key = f"wi_{name}"
@@ -149,7 +155,6 @@ def render() -> None:
         kon = c[1].select_slider("kon (/M/s)", kon_opts, value=nearest(kon_opts, base.kon or 1e6),
                                  format_func=lambda v: f"{v:.3g}", key=f"{key}_kon")
         s = replace(s, rt_s=rt, kon=kon)
-        c[1].caption(f"KD = koff/kon = {widgets.conc(1.0 / (rt * kon))}")
     else:
         s = replace(s, rt_s=None, kon=None)
     if base.incubation_s:
@@ -184,8 +189,10 @@ def render() -> None:
         s = replace(s, pk_route=None, pk_half_life_s=None, pk_cmax_M=None, pk_tmax_s=None, pk_interval_s=None)
 
     try:
-        stored = grade_scenario(portfolio, configs, versions, cid, base, base)
-        now = stored if s == base else grade_scenario(portfolio, configs, versions, cid, s, base)
+        stored_result = scenario_result(portfolio, configs, versions, cid, base, base)
+        now_result = stored_result if s == base else scenario_result(portfolio, configs, versions, cid, s, base)
+        stored = next(e for e in stored_result.to_records() if e["compound"] == name)
+        now = next(e for e in now_result.to_records() if e["compound"] == name)
     except KrtError as exc:
         st.error(widgets.md(widgets.one_line(exc)))
         return
@@ -201,23 +208,22 @@ def render() -> None:
         g[2].markdown(f"The grade moves from **{theme.grade_label(stored['grade'])}** to **{theme.grade_label(now['grade'])}**.")
     widgets.findings_list(now["findings"])
 
-    kin = evidence.Kinetics(1.0 / s.rt_s, s.kon, 1.0 / (s.rt_s * s.kon), "what-if values") if s.rt_s and s.kon else \
-        evidence.Kinetics(None, None, None, "no kinetics")
-    pot = portfolio.potency[portfolio.potency["compound_id"] == cid].copy()
-    if s.incubation_s and s.potency_id is not None:
-        pot.loc[pot["id"] == s.potency_id, "incubation_s"] = s.incubation_s
+    ev = evidence.of(now_result, name)  # the scenario's kinetics and readings, as the grader saw them
+    if ev.kd:
+        st.caption(f"This what-if: residence time {widgets.dur(ev.rt_s)}, KD {widgets.conc(ev.kd)}.")
     st.subheader("Apparent affinity against incubation time")
-    st.altair_chart(evidence.affinity_chart(pot, kin), width="stretch")
+    st.altair_chart(evidence.affinity_chart(ev), width="stretch")
     st.subheader("Target engagement under PK")
-    if not (kin.koff and s.pk_route):
+    if not (ev.koff and s.pk_route):
         st.info("Needs a residence time and a PK profile (switch them on above).")
         return
-    pk_in = evidence.PKInput(route=s.pk_route, cmax=s.pk_cmax_M, half_life=s.pk_half_life_s, tmax=s.pk_tmax_s,
-                             dosing_interval=s.pk_interval_s)
     try:
-        judged = evidence.judged_engagement(kin, pk_in, program)
-        st.caption(f"Regimen judged: {judged['regimen']}")
-        st.altair_chart(evidence.engagement_chart(kin, pk_in, program, judged=judged), width="stretch")
+        eng = evidence.engagement(now_result, ev.compound_id)
+        if eng is None:
+            st.info("Engagement needs kon and a complete PK profile.")
+            return
+        st.altair_chart(evidence.engagement_chart(eng, program), width="stretch")
+        st.caption(f"The regimen the duration check judges: {evidence.engagement_regimen(eng)}.")
     except KrtError as exc:
         st.error(widgets.md(widgets.one_line(exc)))
 
