@@ -72,6 +72,22 @@ def test_ki_shift_without_shift_reports_an_upper_bound(krt_cli):
     assert d["rt_low_s"] == pytest.approx(1 / (1e7 * 5e-9), rel=1e-6)
 
 
+def test_strongly_slow_binding_that_needs_a_kon_below_the_range_is_said_so_not_called_inconsistent(krt_cli):
+    # RT 100 h, kon 1e4 /M/s (KD 0.28 nM): the shift between 1 h and 16 h and the 16 h Ki come from the library's
+    # saturation read (checked against solve_ivp in test_assay.py); no kon in 1e5-1e8 fits, because kon is lower
+    rt, kon = 100 * H, 1e4
+    kd = 1 / (rt * kon)
+    ki_s, _ = assay.apparent_affinity(kd, 1 / rt, 1 * H)
+    ki_l, _ = assay.apparent_affinity(kd, 1 / rt, 16 * H)
+    argv = ["simulate", "ki-shift-bounds", "--ratio", str(float(ki_s / ki_l)), "--short-incubation", "1 h",
+            "--long-incubation", "16 h", "--ki", f"{float(ki_l)} M"]
+    d = krt_cli.json(argv)
+    assert d["consistent"] is False and d["verdict"] == "kon-below-range"
+    assert d["rt_from_ratio_s"][0] > 16 * H  # the shift alone says the residence time exceeds the long read
+    rc, text, _ = krt_cli.run(argv)
+    assert rc == 0 and "Strongly slow binding" in text and "needs a kon below" in text and "inconsistent" not in text
+
+
 BAD = [
     (["simulate", "apparent-affinity", "--kd", "1 nM", "--incubation", "1 h"], "any two"),
     (["simulate", "apparent-affinity", "--koff", "1e-3 /s", "--residence-time", "1000 s", "--incubation", "1 h"], "any two"),

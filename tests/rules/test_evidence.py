@@ -199,3 +199,17 @@ def test_the_depletion_corrected_cheng_prusoff_recovers_ki_from_an_exact_equilib
     assert y0 == pytest.approx(b0 / f0, rel=1e-9)
     assert munson_rodbard_ki(ic50, l_t, kd, y0) == pytest.approx(ki, rel=1e-8)
     assert munson_rodbard_ki(ic50, l_t, kd, 0.0) == pytest.approx(ic50 / (1 + l_t / kd))  # y0 -> 0: Cheng-Prusoff
+
+
+def test_a_competition_ic50_with_the_receptor_concentration_is_converted_by_munson_rodbard():
+    # no kon or KD measured: the compound's KD is estimated from the reported IC50; with 2 nM receptor and a
+    # 1 nM tracer of KD 1 nM the depletion-corrected form applies (Munson & Rodbard 1988), without it Cheng-Prusoff
+    kw = dict(format="competition-binding", readout="IC50", value_M=5e-9, incubation_s=48 * H, tracer_conc_M=1e-9,
+              tracer_kd_M=1e-9, tracer_residence_time_s=5 * MIN, koff_per_s=1 / (10 * MIN), kon_per_M_s=NAN, kd_M=NAN)
+    plain = predict_readings(reading(**kw)).iloc[0]
+    depleted = predict_readings(reading(**kw, target_conc_M=2e-9)).iloc[0]
+    y0 = tracer_bound_free_ratio(2e-9, 1e-9, 1e-9)
+    # 48 h is far past equilibrium for RT 10 min: the estimate is the converted IC50 itself
+    assert plain["kd_used_M"] == pytest.approx(5e-9 / 2, rel=1e-6)
+    assert depleted["kd_used_M"] == pytest.approx(float(munson_rodbard_ki(5e-9, 1e-9, 1e-9, y0)), rel=1e-6)
+    assert depleted["kd_used_M"] < plain["kd_used_M"]
