@@ -4,8 +4,8 @@ Three optional quantity columns (SI value and the original text) on
 ``potency``.  Plain ``ADD COLUMN`` on both engines: no table is rebuilt, so
 the append-only triggers (on other tables) are untouched.
 
-Revision ID: 0003_potency_conditions
-Revises: 0002_target_turnover
+Revision ID: 0004_potency_conditions
+Revises: 0003_fit_supersede
 """
 from __future__ import annotations
 
@@ -14,8 +14,8 @@ from collections.abc import Sequence
 import sqlalchemy as sa
 from alembic import op
 
-revision: str = "0003_potency_conditions"
-down_revision: str | None = "0002_target_turnover"
+revision: str = "0004_potency_conditions"
+down_revision: str | None = "0003_fit_supersede"
 branch_labels: str | Sequence[str] | None = None
 depends_on: str | Sequence[str] | None = None
 
