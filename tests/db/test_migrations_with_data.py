@@ -126,7 +126,10 @@ def _fill(conn) -> dict[str, int]:
                         row[col.name] = i + 1
                     elif col.foreign_keys:
                         parent = next(iter(col.foreign_keys)).column.table.name
-                        row[col.name] = None if (col.nullable and i == ROWS - 1) else ids[parent][i % len(ids[parent])]
+                        if parent == table.name:  # a self-reference (e.g. superseded_by_id): left empty
+                            row[col.name] = None
+                        else:
+                            row[col.name] = None if (col.nullable and i == ROWS - 1) else ids[parent][i % len(ids[parent])]
                     elif col.nullable and i == ROWS - 1:
                         row[col.name] = None
                     else:

@@ -114,12 +114,13 @@ def test_assay_conditions_round_trip_in_their_own_units_and_leave_older_rows_has
     pot.write_text("\n".join(lines) + "\n", encoding="utf-8")
     import_path(migrated_engine, sample_dir, actor="ana")
     stored = queries.potency(migrated_engine)
-    row = stored[stored["compound"] == "AUR-001"].iloc[0]
+    first_name = lines[1].split(",")[0]
+    row = stored[stored["compound"] == first_name].iloc[0]
     assert row["preincubation_s"] == 900.0 and row["max_incubation_s"] == 16 * 3600.0 and row["target_conc_M"] == pytest.approx(0.2e-9)
     out = tmp_path / "export"
     export_all(migrated_engine, out)
     exported = pd.read_csv(out / "potency.csv", dtype=str, keep_default_na=False)
-    first = exported[exported["compound"] == "AUR-001"].iloc[0]
+    first = exported[exported["compound"] == first_name].iloc[0]
     assert (first["preincubation"], first["max_incubation"], first["target_conc"]) == ("15 min", "16 h", "0.2 nM")
     import_path(second_migrated_engine, out, actor="ana")
     assert _content(migrated_engine)["potency"].equals(_content(second_migrated_engine)["potency"])
