@@ -55,6 +55,11 @@ ROLES: tuple[str, ...] = ("lead", "scientist", "viewer")
 #: Outcomes of a gate decision.
 OUTCOMES: tuple[str, ...] = ("approved", "refused")
 
+#: Meanings of an electronic signature on a gate decision (21 CFR Part 11 §11.50(a)(3)):
+#: the decider ``approved`` or was ``refused``; a lead ``waived`` findings; a second lead
+#: ``co-signed`` a waiver (two-person rule).
+SIGNATURE_MEANINGS: tuple[str, ...] = ("approved", "refused", "waived", "co-signed")
+
 
 def stage_index(stage: str) -> int:
     """Position of ``stage`` in :data:`STAGES` (raises ``ValueError`` for an unknown stage)."""
@@ -75,4 +80,4 @@ def canonical(value: str, allowed: tuple[str, ...]) -> str | None:
     return None
 
 
-__all__ = ["STAGES", "READOUTS", "FORMATS", "METHODS", "FIT_METHODS", "ROUTES", "ROLES", "OUTCOMES", "stage_index", "canonical", "normalise_token"]
+__all__ = ["STAGES", "READOUTS", "FORMATS", "METHODS", "FIT_METHODS", "ROUTES", "ROLES", "OUTCOMES", "SIGNATURE_MEANINGS", "stage_index", "canonical", "normalise_token"]

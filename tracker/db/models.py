@@ -39,7 +39,7 @@ from sqlalchemy import (
 from sqlalchemy.orm import DeclarativeBase, Mapped, mapped_column
 from sqlalchemy.types import TypeDecorator
 
-from ..domain import FORMATS, METHODS, OUTCOMES, READOUTS, ROLES, ROUTES, STAGES
+from ..domain import FORMATS, METHODS, OUTCOMES, READOUTS, ROLES, ROUTES, SIGNATURE_MEANINGS, STAGES
 
 NAMING_CONVENTION = {
     "ix": "ix_%(column_0_label)s",
@@ -50,7 +50,7 @@ NAMING_CONVENTION = {
 }
 
 #: Tables whose rows may never be updated or deleted (enforced by triggers).
-APPEND_ONLY_TABLES: tuple[str, ...] = ("decisions", "audit_events")
+APPEND_ONLY_TABLES: tuple[str, ...] = ("decisions", "audit_events", "signatures")
 
 
 def utcnow() -> dt.datetime:
@@ -135,6 +135,28 @@ class User(Base):
     role: Mapped[str] = mapped_column(String(16))
     created_at: Mapped[dt.datetime] = mapped_column(UTCDateTime, default=utcnow)
     active: Mapped[bool] = mapped_column(Boolean, default=True)
+    #: argon2id hash (PHC string, ``$argon2id$...``) of the password; never the password itself.
+    #: NULL: no password set yet, so the user cannot sign in (nor sign).
+    password_hash: Mapped[str | None] = mapped_column(String(255))
+    #: the signer's printed name on signatures (21 CFR Part 11 §11.50(a)(1)); NULL -> ``name``
+    full_name: Mapped[str | None] = mapped_column(String(200))
+
+
+class LoginSession(Base):
+    """A command-line sign-in (``krt login``): only the SHA-256 of its random token is stored.
+
+    The token itself lives in the user's private session file; editing that file
+    cannot forge a session, because the hash must match a row here that has
+    not expired.  ``krt logout`` deletes the row.
+    """
+
+    __tablename__ = "login_sessions"
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    user_id: Mapped[int] = mapped_column(ForeignKey("users.id"), index=True)
+    token_hash: Mapped[str] = mapped_column(String(64), unique=True)
+    created_at: Mapped[dt.datetime] = mapped_column(UTCDateTime, default=utcnow)
+    expires_at: Mapped[dt.datetime] = mapped_column(UTCDateTime)
 
 
 class RuleConfig(Base):
@@ -168,6 +190,29 @@ class Decision(Base):
     waivers_json: Mapped[str | None] = mapped_column(Text)
     evidence_json: Mapped[str | None] = mapped_column(Text)
     ruleset_version: Mapped[str | None] = mapped_column(String(64))
+    at: Mapped[dt.datetime] = mapped_column(UTCDateTime, default=utcnow)
+
+
+class Signature(Base):
+    """An electronic signature linked to a gate decision (21 CFR Part 11 §11.50, §11.70).
+
+    Append-only (database triggers).  Holds the signer's printed name, the UTC
+    time of signing and its meaning; the password was re-entered at that
+    moment (§11.200(a)(1)).  Each row is also recorded in the audit chain.
+    """
+
+    __tablename__ = "signatures"
+    __table_args__ = (
+        CheckConstraint(_in("meaning", SIGNATURE_MEANINGS), name="meaning_valid"),
+        CheckConstraint(_in("role", ROLES), name="role_valid"),
+    )
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    decision_id: Mapped[int] = mapped_column(ForeignKey("decisions.id"), index=True)
+    signer: Mapped[str] = mapped_column(String(100))
+    printed_name: Mapped[str] = mapped_column(String(200))
+    role: Mapped[str] = mapped_column(String(16))
+    meaning: Mapped[str] = mapped_column(String(16))
     at: Mapped[dt.datetime] = mapped_column(UTCDateTime, default=utcnow)
 
 
@@ -343,6 +388,8 @@ __all__ = [
     "Program",
     "Compound",
     "User",
+    "LoginSession",
+    "Signature",
     "RuleConfig",
     "Decision",
     "StageHistory",
