@@ -18,6 +18,9 @@ from collections import Counter
 
 import pytest
 
+#: the password every test user gets (tests sign in like people do: ``krt login`` / the dashboard form)
+TEST_PASSWORD = "test-password-42"
+
 PG_URL = os.environ.get("KRT_TEST_POSTGRES_URL", "postgresql+psycopg://postgres@127.0.0.1:5432/test")
 BACKENDS = ("sqlite", "postgresql")
 _ran: Counter = Counter()
@@ -186,6 +189,64 @@ def pytest_collection_modifyitems(config, items):
     for item in items:
         if "slow" in item.keywords:
             item.add_marker(skip)
+
+
+# ------------------------------------------------------------------ identity
+@pytest.fixture(scope="session", autouse=True)
+def _cheap_password_hashing():
+    """argon2's cheapest parameters inside the test process: the real ones cost ~1 s per hash on a busy CI box,
+    and the suite hashes hundreds of passwords.  The algorithm and code path are the same; the shipped
+    parameters are pinned by tests/services/test_identity.py, and subprocesses (the browser test) use them."""
+    from argon2 import PasswordHasher, profiles
+
+    from tracker.services import users
+
+    original = users._hasher
+    cheap = PasswordHasher.from_parameters(profiles.CHEAPEST)
+    users._hasher = lambda: cheap
+    users._dummy_hash.cache_clear()
+    yield original
+    users._hasher = original
+    users._dummy_hash.cache_clear()
+
+
+@pytest.fixture(autouse=True)
+def _private_config_dir(tmp_path, monkeypatch):
+    """Every test keeps its ``krt login`` sessions in its own folder, never in the real config folder,
+    and no test inherits an identity from the environment."""
+    monkeypatch.setenv("KRT_CONFIG_DIR", str(tmp_path / "krt-config"))
+    monkeypatch.delenv("KRT_USER", raising=False)
+    monkeypatch.delenv("KRT_SESSION_HOURS", raising=False)
+
+
+def cli_login(url: str, name: str, password: str = TEST_PASSWORD) -> int:
+    """``krt --database URL login NAME --password-stdin`` with ``password`` on stdin; returns the exit code."""
+    import io
+    import sys
+
+    from tracker.cli import main
+
+    old = sys.stdin
+    sys.stdin = io.StringIO(password + "\n")
+    try:
+        return main(["--database", url, "login", name, "--password-stdin"])
+    finally:
+        sys.stdin = old
+
+
+@pytest.fixture
+def test_password() -> str:
+    return TEST_PASSWORD
+
+
+@pytest.fixture
+def login():
+    """``login(url_or_engine, name, password=TEST_PASSWORD)``: sign in on the command line (asserts success)."""
+    def run(target, name: str, password: str = TEST_PASSWORD) -> None:
+        url = target if isinstance(target, str) else target.url.render_as_string(hide_password=False)
+        assert cli_login(url, name, password) == 0, f"krt login {name} failed"
+
+    return run
 
 
 # ------------------------------------------------------------------ backend summary

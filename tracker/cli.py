@@ -30,6 +30,8 @@ COMMANDS: dict[str, tuple[str, str]] = {
     "rules": ("grade", "show or change the rule settings (thresholds) of a program"),
     "queue": ("queue", "rank compounds by the value of a kinetic measurement, with the assay to use"),
     "user": ("users", "add, list or change users (lead, scientist, viewer)"),
+    "login": ("signin", "sign in to this database (a short-lived session in your private config folder)"),
+    "logout": ("signin", "end your session on this database"),
     "gate": ("gate", "move a compound to another stage, gated on its grade (leads only; recorded)"),
     "audit": ("audit", "verify or show the tamper-evident audit trail"),
     "backup": ("backup", "back up the database (SQLite online copy, or an export-based backup with --export)"),

@@ -25,6 +25,8 @@ PROGRAM = "Concurrency"
 STAGE_PATH = ("hit", "hit-to-lead", "lead-optimization", "advanced-lead")
 
 
+PASSWORD = "test-password-42"  # tests/conftest.py TEST_PASSWORD: the lead signs every gate decision
+
 def compound_name(worker: int, batch: int, i: int) -> str:
     return f"W{worker}-B{batch:02d}-{i:03d}"
 
@@ -117,7 +119,8 @@ def gater(url: str, worker: int, moves: list[tuple[str, str]], lead: str, waiver
             barrier.wait(timeout=180)
             for compound, to_stage in moves:
                 try:
-                    res = request_gate(engine, compound, to_stage, lead, f"worker {worker} moves {compound}", waivers=waivers)
+                    res = request_gate(engine, compound, to_stage, lead, f"worker {worker} moves {compound}", waivers=waivers,
+                                       password=PASSWORD)
                     report["approved"].append((compound, res["from_stage"], res["to_stage"], res["decision_id"]))
                 except GateRefused as exc:
                     report["refused"].append((compound, to_stage, exc.reasons))

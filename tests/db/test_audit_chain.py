@@ -11,7 +11,7 @@ from sqlalchemy import insert, select, text
 from sqlalchemy.exc import DBAPIError
 
 from tracker.db.audit import GENESIS_HASH, append_event, append_events, canonical_json, chain_head, event_hash, verify_chain
-from tracker.db.models import APPEND_ONLY_TABLES, AuditEvent, Compound, Decision, Program
+from tracker.db.models import APPEND_ONLY_TABLES, AuditEvent, Compound, Decision, Program, Signature
 from tracker.db.session import with_retry
 from tracker.db.triggers import drop_append_only
 from tracker.db.uow import UnitOfWork
@@ -23,8 +23,11 @@ def _seed(engine, n_events: int = 5) -> None:
         s = uow.session
         pid = s.execute(insert(Program).returning(Program.id), [{"name": "Ashgrove", "created_at": now}]).scalar_one()
         cid = s.execute(insert(Compound).returning(Compound.id), [{"name": "AGR-1", "program_id": pid, "stage": "hit", "created_at": now}]).scalar_one()
-        s.execute(insert(Decision), [{"compound_id": cid, "from_stage": "hit", "to_stage": "hit-to-lead", "outcome": "approved",
-                                      "by_user": "ana", "reason": "kinetics measured", "at": now}])
+        did = s.execute(insert(Decision).returning(Decision.id), [{"compound_id": cid, "from_stage": "hit", "to_stage": "hit-to-lead",
+                                                                   "outcome": "approved", "by_user": "ana", "reason": "kinetics measured",
+                                                                   "at": now}]).scalar_one()
+        s.execute(insert(Signature), [{"decision_id": did, "signer": "ana", "printed_name": "Ana", "role": "lead",
+                                       "meaning": "approved", "at": now}])
         for i in range(n_events):
             append_event(s, "ana", "create", "compound", cid, None if i == 0 else {"stage": "hit"}, {"stage": "hit", "i": i}, f"step {i}")
         uow.commit()
@@ -37,11 +40,11 @@ def _execute(engine, sql: str) -> None:
 
 
 @pytest.mark.parametrize("table", APPEND_ONLY_TABLES)
-@pytest.mark.parametrize("statement", ["UPDATE {t} SET reason = 'rewritten'", "DELETE FROM {t}"])
+@pytest.mark.parametrize("statement", ["UPDATE {t} SET {c} = 'rewritten'", "DELETE FROM {t}"])
 def test_the_database_refuses_to_update_or_delete_append_only_rows(migrated_engine, table, statement):
     _seed(migrated_engine)
     with pytest.raises(DBAPIError) as info:
-        _execute(migrated_engine, statement.format(t=table))
+        _execute(migrated_engine, statement.format(t=table, c="printed_name" if table == "signatures" else "reason"))
     assert "append-only" in str(info.value)
     with migrated_engine.connect() as conn:
         assert conn.exec_driver_sql(f"SELECT count(*) FROM {table}").scalar() > 0

@@ -39,6 +39,8 @@ from tracker.services.grading import grade_portfolio, set_rule_override
 from tracker.services.importing import export_all, import_path
 from tracker.services.users import add_user, deactivate_user
 
+PASSWORD = "test-password-42"  # tests/conftest.py TEST_PASSWORD
+
 HERE = Path(__file__).resolve().parent
 WRITER_BATCHES = 24
 WRITER_BATCH_SIZE = 8
@@ -79,13 +81,14 @@ def _files(folder: Path) -> dict[str, bytes]:
 
 def _populate(engine, sample_dir: Path) -> None:
     """Sample data, three users (one deactivated), a rule override and two gate decisions."""
-    add_user(engine, "lena", "lead")
-    add_user(engine, "sam", "scientist", by="lena")
-    add_user(engine, "vic", "viewer", by="lena")
+    add_user(engine, "lena", "lead", password=PASSWORD)
+    add_user(engine, "sam", "scientist", by="lena", password=PASSWORD)
+    add_user(engine, "vic", "viewer", by="lena", password=PASSWORD)
     deactivate_user(engine, "vic", by="lena", reason="left the team")
     import_path(engine, sample_dir, actor="sam")
     set_rule_override(engine, "Ashgrove", {"ki_shift_threshold": 8}, by="lena", reason="assay noise")
-    request_gate(engine, "AGR-001", "hit-to-lead", "lena", "meets the bar", waivers=["residence-time-unmeasured", "affinity-underestimate", "duration-mismatch"])
+    request_gate(engine, "AGR-001", "hit-to-lead", "lena", "meets the bar", waivers=["residence-time-unmeasured", "affinity-underestimate", "duration-mismatch"],
+                 password=PASSWORD)
 
 
 # ------------------------------------------------------------------ SQLite online backup

@@ -19,9 +19,16 @@ def test_db_upgrade_then_current_reports_the_head_revision(db_url, monkeypatch, 
     assert main(["db", "check"]) == 0
 
 
-def test_info_json_lists_counts_and_masks_the_password(db_url, sample_dir, monkeypatch, capsys, tmp_path):
+def test_info_json_lists_counts_and_masks_the_password(db_url, sample_dir, monkeypatch, capsys, tmp_path, login, test_password):
+    from tracker.db.session import make_engine
+    from tracker.services.users import add_user
+
     monkeypatch.setenv("KRT_DATABASE_URL", db_url)
     main(["db", "upgrade"])
+    engine = make_engine(db_url)
+    add_user(engine, "ana", "lead", password=test_password)
+    engine.dispose()
+    login(db_url, "ana")
     assert main(["import", str(sample_dir), "--by", "ana"]) == 0
     capsys.readouterr()
     assert main(["info", "--json"]) == 0

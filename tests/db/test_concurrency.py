@@ -55,8 +55,8 @@ def _url(engine) -> str:
 
 def _prepare(engine, tmp_path: Path, w) -> None:
     """A lead, a scientist and the program every child writes into."""
-    add_user(engine, "lena", "lead")
-    add_user(engine, "sam", "scientist", by="lena")
+    add_user(engine, "lena", "lead", password="test-password-42")
+    add_user(engine, "sam", "scientist", by="lena", password="test-password-42")
     folder = tmp_path / "program"
     folder.mkdir()
     (folder / "programs.csv").write_text(f"program,target\n{w.PROGRAM},Kinase CX1\n", encoding="utf-8")

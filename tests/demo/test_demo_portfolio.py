@@ -154,10 +154,11 @@ def test_demo_saved_fits_show_in_info(db_url, capsys, monkeypatch):
 def test_demo_load_again_keeps_gate_decisions_and_own_imports(demo_engine, tmp_path):
     """Re-loading the demo after using it (a gate, an own import) keeps that work (it used to refuse the stage change)."""
     from tracker.db.queries import counts
+    from tracker.services.demo import DEMO_PASSWORD
     from tracker.services.gates import request_gate
     from tracker.services.importing import import_path
 
-    request_gate(demo_engine, "HF-1002", "hit-to-lead", by="demo-lead", reason="fast and clean")
+    request_gate(demo_engine, "HF-1002", "hit-to-lead", by="demo-lead", reason="fast and clean", password=DEMO_PASSWORD)
     (tmp_path / "compounds.csv").write_text("compound,program,series,stage,smiles\nHF-1002,Heronfield,renamed series,hit-to-lead,\n", encoding="utf-8")
     import_path(demo_engine, tmp_path / "compounds.csv", actor="demo-scientist")
     before = counts(demo_engine)
@@ -165,3 +166,15 @@ def test_demo_load_again_keeps_gate_decisions_and_own_imports(demo_engine, tmp_p
     assert summary["fits_saved"] == 0 and counts(demo_engine) == before
     stage, series = {r["compound"]: (r["stage"], r["series"]) for r in grade_portfolio(demo_engine)}["HF-1002"]
     assert stage == "hit-to-lead" and series == "renamed series"
+
+
+def test_demo_load_prints_the_demo_password_and_a_script_signs_in_with_it(db_url, capsys, monkeypatch, login):
+    monkeypatch.setenv("KRT_DATABASE_URL", db_url)
+    assert main(["demo", "load", "--json"]) == 0
+    summary = json.loads(capsys.readouterr().out)
+    password = summary["demo_password"]
+    assert summary["users"] == ["demo-lead", "demo-scientist", "demo-viewer"] and len(password) >= 8
+    assert main(["demo", "load"]) == 0  # loading again changes nothing and prints the password too
+    assert f"demo password (every demo user): {password}" in capsys.readouterr().out
+    login(db_url, "demo-lead", password)
+    assert main(["rules", "set", "ki_shift_threshold=7", "--reason", "demo sign-in works"]) == 0

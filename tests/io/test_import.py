@@ -149,7 +149,12 @@ def test_a_stage_change_of_an_existing_compound_is_refused_on_import(loaded, tmp
     assert db_snapshot(loaded) == before
 
 
-def test_the_first_line_the_cli_prints_is_file_line_column_message(loaded, tmp_path, monkeypatch, capsys):
+def test_the_first_line_the_cli_prints_is_file_line_column_message(loaded, tmp_path, monkeypatch, capsys, login, test_password):
+    from tracker.services.users import add_user
+
+    add_user(loaded, "ana", "lead", password=test_password)
+    login(loaded, "ana")
+    capsys.readouterr()
     monkeypatch.setenv("KRT_DATABASE_URL", loaded.url.render_as_string(hide_password=False))
     folder = _write(tmp_path / "bad", {"potency.csv": POT_HEAD + POT_OK + "AGR-002,a,IC50,3 nQ,30 min,binding\n"})
     assert main(["import", str(folder / "potency.csv"), "--by", "ana"]) == 2

@@ -93,13 +93,13 @@ def portfolio_dir(tmp_path):
 
 
 @pytest.fixture
-def kestrel(migrated_engine, portfolio_dir):
+def kestrel(migrated_engine, portfolio_dir, test_password):
     """A migrated database (SQLite file and PostgreSQL) with users and the portfolio imported by the lead."""
     from tracker.services.importing import import_path
     from tracker.services.users import add_user
 
     for name, role in USERS:
-        add_user(migrated_engine, name, role, by=None if name == "lena" else "lena")
+        add_user(migrated_engine, name, role, by=None if name == "lena" else "lena", password=test_password)
     import_path(migrated_engine, portfolio_dir, actor="lena")
     return migrated_engine
 
@@ -110,14 +110,29 @@ def expected_grades():
 
 
 @pytest.fixture
-def cli(kestrel, capsys, monkeypatch):
-    """Run ``krt`` on the kestrel database: returns (exit code, stdout, stderr)."""
+def cli(kestrel, capsys, monkeypatch, login, test_password):
+    """Run ``krt`` on the kestrel database: returns (exit code, stdout, stderr).
+
+    ``stdin="..."`` feeds standard input; ``as_user="lena"`` signs in first with ``krt login`` (the test
+    password) and keeps that session for later calls; ``signed=N`` adds ``--password-stdin`` with N lines
+    of the test password on stdin (a gate's signature, and a second lead's)."""
+    import io
+    import sys
+
     from tracker.cli import main
 
     url = kestrel.url.render_as_string(hide_password=False)
     monkeypatch.setenv("KRT_DATABASE_URL", url)  # restored afterwards (main() sets it from --database)
 
-    def run(*argv):
+    def run(*argv, stdin: str | None = None, as_user: str | None = None, signed: int = 0):
+        if signed:
+            argv = (*argv, "--password-stdin")
+            stdin = (test_password + "\n") * signed
+        if as_user is not None:
+            login(url, as_user)
+            capsys.readouterr()
+        if stdin is not None:
+            monkeypatch.setattr(sys, "stdin", io.StringIO(stdin))
         code = main(["--database", url, *argv])
         out, err = capsys.readouterr()
         return code, out, err

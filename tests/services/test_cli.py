@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import io
 import json
 
 import pytest
@@ -35,12 +36,13 @@ def test_grade_of_an_unknown_program_is_one_line_and_non_zero(cli):
 
 
 def test_rules_show_and_set(cli):
-    code, out, err = cli("rules", "set", "--program", "Kestrel", "ki_shift_threshold=12", "--by", "lena", "--reason", "noisy assay")
+    code, out, err = cli("rules", "set", "--program", "Kestrel", "ki_shift_threshold=12", "--by", "lena", "--reason", "noisy assay",
+                         as_user="lena")
     assert code == 0, err
     code, out, _ = cli("rules", "show", "--program", "Kestrel", "--json")
     info = json.loads(out)
     assert info["settings"]["ki_shift_threshold"] == 12.0 and info["source"]["ki_shift_threshold"] == "program"
-    code, out, err = cli("rules", "set", "--program", "Kestrel", "ki_shift_threshold=3", "--by", "sam", "--reason", "x")
+    code, out, err = cli("rules", "set", "--program", "Kestrel", "ki_shift_threshold=3", "--by", "sam", "--reason", "x", as_user="sam")
     assert code == 2 and "only a lead" in err and err.count("\n") == 1
     code, out, err = cli("rules", "set", "--program", "Kestrel", "ki_shift_threshold", "--by", "lena", "--reason", "x")
     assert code == 2 and "KEY=VALUE" in err
@@ -55,9 +57,9 @@ def test_queue_json_and_text(cli):
 
 
 def test_user_add_and_list(cli):
-    code, out, err = cli("user", "add", "mia", "--role", "scientist", "--by", "lena")
+    code, out, err = cli("user", "add", "mia", "--role", "scientist", "--by", "lena", as_user="lena", signed=1)
     assert code == 0 and "mia added as scientist" in out
-    code, out, err = cli("user", "add", "zed", "--role", "lead", "--by", "mia")
+    code, out, err = cli("user", "add", "zed", "--role", "lead", "--by", "mia", as_user="mia", signed=1)
     assert code == 2 and "only a lead may add users" in err
     code, out, _ = cli("user", "list", "--json")
     assert {u["name"]: u["role"] for u in json.loads(out)}["mia"] == "scientist"
@@ -68,25 +70,31 @@ def test_user_add_on_an_empty_database_bootstraps_a_lead(migrated_engine, capsys
 
     url = migrated_engine.url.render_as_string(hide_password=False)
     monkeypatch.setenv("KRT_DATABASE_URL", url)
-    assert main(["user", "add", "ana", "--role", "viewer"]) == 2
+    monkeypatch.setattr("sys.stdin", io.StringIO("ana-password-1\nana-password-1\n"))
+    assert main(["user", "add", "ana", "--role", "viewer", "--password-stdin"]) == 2
     assert "first user must be a lead" in capsys.readouterr().err
-    assert main(["user", "add", "ana", "--role", "lead"]) == 0
-    assert "ana added as lead" in capsys.readouterr().out
+    assert main(["user", "add", "ana", "--role", "lead", "--password-stdin"]) == 0
+    assert "ana added as lead (first user: the bootstrap lead)" in capsys.readouterr().out
+    # from now on only a signed-in lead adds users
+    monkeypatch.setattr("sys.stdin", io.StringIO("bob-password-1\n"))
+    assert main(["user", "add", "bob", "--role", "lead", "--password-stdin"]) == 2
+    assert "nobody is signed in" in capsys.readouterr().err
 
 
 def test_gate_refused_is_one_line_with_a_non_zero_exit_and_recorded(cli):
-    code, out, err = cli("gate", "K-ADV-1", "--to", "candidate", "--by", "lena", "--reason", "best compound")
+    code, out, err = cli("gate", "K-ADV-1", "--to", "candidate", "--by", "lena", "--reason", "best compound",
+                         as_user="lena", signed=1)
     assert code == 2 and out == ""
     assert err.count("\n") == 1 and "unwaived high finding residence-time-unmeasured" in err and "recorded as decision 1" in err
-    code, out, err = cli("gate", "K-HIT-1", "--to", "lead-optimization", "--by", "lena", "--reason", "x")
+    code, out, err = cli("gate", "K-HIT-1", "--to", "lead-optimization", "--by", "lena", "--reason", "x", signed=1)
     assert code == 2 and "stage-skip" in err
-    code, out, err = cli("gate", "K-HIT-1", "--to", "hit-to-lead", "--by", "vic", "--reason", "x")
+    code, out, err = cli("gate", "K-HIT-1", "--to", "hit-to-lead", "--by", "vic", "--reason", "x", as_user="vic", signed=1)
     assert code == 2 and "is a viewer" in err
 
 
 def test_gate_approved_with_a_waiver_and_json(cli):
     code, out, err = cli("gate", "K-ADV-1", "--to", "candidate", "--by", "lena", "--reason", "kinetics booked",
-                         "--waive", "residence-time-unmeasured:assay slot in March", "--json")
+                         "--waive", "residence-time-unmeasured:assay slot in March", "--json", as_user="lena", signed=1)
     assert code == 0, err
     d = json.loads(out)
     assert d["outcome"] == "approved" and d["waivers"]["residence-time-unmeasured"]["reason"] == "assay slot in March"
@@ -97,8 +105,8 @@ def test_gate_approved_with_a_waiver_and_json(cli):
 def test_audit_verify_passes_on_an_intact_log_and_show_filters_by_compound(cli, kestrel):
     from tracker.db import queries
 
-    cli("gate", "K-HIT-1", "--to", "hit-to-lead", "--by", "lena", "--reason", "clean")
-    cli("gate", "K-ADV-2", "--to", "candidate", "--by", "lena", "--reason", "clean")  # another compound's events
+    cli("gate", "K-HIT-1", "--to", "hit-to-lead", "--by", "lena", "--reason", "clean", as_user="lena", signed=1)
+    cli("gate", "K-ADV-2", "--to", "candidate", "--by", "lena", "--reason", "clean", signed=1)  # another compound's events
     code, out, err = cli("audit", "verify")
     assert code == 0 and "audit chain intact" in out and "2 decision(s) match" in out and "import(s) match their rows" in out
     code, out, _ = cli("audit", "show", "--compound", "K-HIT-1", "--json")
@@ -131,7 +139,9 @@ AUDIT_EDITS = {
 
 @pytest.mark.parametrize("field", list(AUDIT_EDITS))
 def test_audit_verify_names_the_gate_event_whose_field_was_edited(cli, kestrel, field):
-    cli("gate", "K-CAN-1", "--to", "clinical", "--by", "lena", "--reason", "ok", "--waive", "duration-mismatch")
+    code, _, err = cli("gate", "K-CAN-1", "--to", "clinical", "--by", "lena", "--reason", "ok", "--waive", "duration-mismatch",
+                       "--second-lead", "otto", as_user="lena", signed=2)
+    assert code == 0, err
     code, out, _ = cli("audit", "show", "--json")
     gate_event = next(e["id"] for e in json.loads(out) if e["action"] == "gate-approved")
     with kestrel.begin() as conn:

@@ -11,11 +11,18 @@ from sqlalchemy.exc import DBAPIError
 from tracker.db import queries
 from tracker.db.models import APPEND_ONLY_TABLES, AuditEvent, Compound, Decision, StageHistory
 from tracker.db.triggers import drop_append_only
-from tracker.errors import GateRefused, InputError, NotFoundError
+from tracker.errors import GateRefused, InputError, NotFoundError, PermissionDenied
 from tracker.services import gates
 from tracker.services.auditlog import verify
-from tracker.services.gates import request_gate
 from tracker.services.users import deactivate_user
+
+PASSWORD = "test-password-42"  # tests/conftest.py TEST_PASSWORD: every kestrel user's
+
+
+def request_gate(*args, **kwargs):
+    """The gate service, signed with the deciding user's password unless the test gives another."""
+    kwargs.setdefault("password", PASSWORD)
+    return gates.request_gate(*args, **kwargs)
 
 
 def stage_of(engine, name):
@@ -34,7 +41,7 @@ def events(engine, action=None):
 
 
 # ----------------------------------------------------------------------------- refused
-@pytest.mark.parametrize("user, words", [("sam", "is a scientist"), ("vic", "is a viewer"), ("nobody", "unknown user")])
+@pytest.mark.parametrize("user, words", [("sam", "is a scientist"), ("vic", "is a viewer")])
 def test_a_gate_is_refused_when_the_user_is_not_a_lead(kestrel, user, words):
     with pytest.raises(GateRefused) as info:
         request_gate(kestrel, "K-HIT-1", "hit-to-lead", by=user, reason="promising")
@@ -45,11 +52,21 @@ def test_a_gate_is_refused_when_the_user_is_not_a_lead(kestrel, user, words):
     assert [e["actor"] for e in events(kestrel, "gate-refused")] == [user]
 
 
-def test_a_deactivated_lead_may_not_pass_a_gate(kestrel):
+def test_a_deactivated_lead_may_not_pass_a_gate(kestrel, db_snapshot):
     deactivate_user(kestrel, "otto", by="lena", reason="left the team")
-    with pytest.raises(GateRefused, match="deactivated"):
+    before = db_snapshot(kestrel)
+    with pytest.raises(PermissionDenied, match="deactivated"):
         request_gate(kestrel, "K-HIT-1", "hit-to-lead", by="otto", reason="promising")
-    assert stage_of(kestrel, "K-HIT-1") == "hit"
+    assert db_snapshot(kestrel) == before  # a signature that fails records nothing
+
+
+@pytest.mark.parametrize("by, password", [("nobody", PASSWORD), ("lena", "wrong-password-1"), ("lena", None), ("lena", "")])
+def test_an_unknown_user_or_a_wrong_or_missing_password_signs_nothing(kestrel, db_snapshot, by, password):
+    before = db_snapshot(kestrel)
+    with pytest.raises(PermissionDenied) as info:
+        request_gate(kestrel, "K-HIT-1", "hit-to-lead", by=by, reason="promising", password=password)
+    assert "\n" not in str(info.value) and ("password" in str(info.value))
+    assert db_snapshot(kestrel) == before
 
 
 def test_a_gate_is_refused_when_residence_time_is_unmeasured_at_advanced_lead(kestrel):
@@ -111,14 +128,14 @@ def test_a_lead_passes_a_clear_compound_and_the_decision_stage_and_audit_are_wri
     assert (row["outcome"], row["from_stage"], row["to_stage"], row["by_user"]) == ("approved", "hit", "hit-to-lead", "lena")
     hist = queries.stage_history(kestrel, compounds=["K-HIT-1"])
     assert list(hist["to_stage"]) == ["hit", "hit-to-lead"] and int(hist["decision_id"].iloc[-1]) == row["id"]
-    actions = [e["action"] for e in events(kestrel)][-2:]
-    assert actions == ["gate-approved", "stage-change"]
+    actions = [e["action"] for e in events(kestrel)][-3:]
+    assert actions == ["gate-approved", "stage-change", "sign"]
     assert verify(kestrel)["ok"]
 
 
 def test_a_waived_high_finding_passes_and_the_snapshot_names_the_evidence(kestrel):
     d = request_gate(kestrel, "K-CAN-1", "clinical", by="lena", reason="offset acceptable for this indication",
-                     waivers=["duration-mismatch:night dosing planned"])
+                     waivers=["duration-mismatch:night dosing planned"], second_lead="otto", second_password=PASSWORD)
     assert d["outcome"] == "approved" and stage_of(kestrel, "K-CAN-1") == "clinical"
     row = decisions(kestrel)[-1]
     snap = json.loads(row["evidence_json"])
@@ -193,7 +210,8 @@ DECISION_EDITS = {
 
 @pytest.mark.parametrize("column", list(DECISION_EDITS))
 def test_an_edited_decision_no_longer_matches_its_audit_event(kestrel, column):
-    request_gate(kestrel, "K-CAN-1", "clinical", by="lena", reason="ok", waivers=["duration-mismatch"])
+    request_gate(kestrel, "K-CAN-1", "clinical", by="lena", reason="ok", waivers=["duration-mismatch"],
+                 second_lead="otto", second_password=PASSWORD)
     assert verify(kestrel)["ok"]
     _drop_triggers(kestrel)
     with kestrel.begin() as conn:
@@ -235,7 +253,8 @@ def test_concurrent_gates_are_all_recorded_and_the_chain_still_verifies(kestrel)
 
     def work(name, to, by, waivers):
         try:
-            outcomes[name] = request_gate(kestrel, name, to, by=by, reason="parallel review", waivers=waivers)["outcome"]
+            second = {"second_lead": "lena" if by == "otto" else "otto", "second_password": PASSWORD} if waivers else {}
+            outcomes[name] = request_gate(kestrel, name, to, by=by, reason="parallel review", waivers=waivers, **second)["outcome"]
         except GateRefused:
             outcomes[name] = "refused"
         except BaseException as exc:  # pragma: no cover - reported below

@@ -28,7 +28,7 @@ def test_after_the_first_user_only_an_active_lead_may_add_users(migrated_engine)
         add_user(migrated_engine, "vic", "viewer", by="sam")
     with pytest.raises(PermissionDenied, match="unknown user"):
         add_user(migrated_engine, "vic", "viewer", by="ghost")
-    with pytest.raises(PermissionDenied, match="pass --by"):
+    with pytest.raises(PermissionDenied, match="signed-in user"):
         add_user(migrated_engine, "vic", "viewer", by=None)
     assert list(list_users(migrated_engine)["name"]) == ["lena", "sam"]
 

@@ -3,9 +3,9 @@
 The demo scenario is loaded once per session into a template SQLite file
 (``tracker.services.demo.load_demo``: migrations, demo users, the seed_demo
 import and the saved fits); each test gets its own copy, so tests that write
-(gates, imports) cannot see each other.  The app reads ``KRT_DATABASE_URL``
-and, in local mode, ``KRT_USER`` for the identity; both are set before the
-app runs.
+(gates, imports) cannot see each other.  The app reads ``KRT_DATABASE_URL``; in local mode the
+fixtures sign in through the sidebar's sign-in form with the documented demo
+password, like a person would.
 """
 
 from __future__ import annotations
@@ -77,9 +77,11 @@ def demo_graded(shared_demo_url) -> dict:
 def _app_factory(monkeypatch, default_url: str):
     from streamlit.testing.v1 import AppTest
 
-    def make(user: str = "demo-lead", url: str | None = None, secrets: dict | None = None, st_user: dict | None = None) -> AppTest:
+    def make(user: str | None = "demo-lead", url: str | None = None, secrets: dict | None = None, st_user: dict | None = None,
+             password: str | None = None) -> AppTest:
+        from tracker.services.demo import DEMO_PASSWORD
+
         monkeypatch.setenv("KRT_DATABASE_URL", url or default_url)
-        monkeypatch.setenv("KRT_USER", user)
         at = AppTest.from_file(str(APP), default_timeout=60)
         for k, v in (secrets or {}).items():
             at.secrets[k] = v
@@ -87,15 +89,27 @@ def _app_factory(monkeypatch, default_url: str):
             at.user = st_user
         at.run()
         assert not at.exception, [e.value for e in at.exception]
+        if user is not None and not secrets:
+            sign_in(at, user, password or DEMO_PASSWORD)
+            assert not at.error, [e.value for e in at.error]
         return at
 
     return make
 
 
+def sign_in(at, user: str, password: str):
+    """Fill the sidebar's sign-in form and submit it."""
+    at.sidebar.text_input(key="krt_signin_name").input(user)
+    at.sidebar.text_input(key="krt_signin_password").input(password)
+    next(b for b in at.sidebar.button if b.label == "Sign in").click().run()
+    assert not at.exception, [e.value for e in at.exception]
+    return at
+
+
 @pytest.fixture
 def app(monkeypatch, demo_url):
     """``app(user="demo-lead")`` -> an AppTest of app.py on this test's own demo copy, signed in locally as
-    ``user``, already run once (the risk overview, which registers the pages).  For tests that write."""
+    ``user`` through the sign-in form (``user=None``: nobody signed in), already run once (the risk overview, which registers the pages).  For tests that write."""
     return _app_factory(monkeypatch, demo_url)
 
 

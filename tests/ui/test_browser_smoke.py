@@ -63,7 +63,12 @@ def server(demo_template, tmp_path_factory):
     shutil.copy2(demo_template, db)
     port = _free_port()
     log = folder / "streamlit.log"
-    env = dict(os.environ, KRT_DATABASE_URL=f"sqlite:///{db}", KRT_USER="demo-lead")
+    from tracker.services.demo import DEMO_LEAD, DEMO_PASSWORD, ENV_DEMO_SIGNIN_PASSWORD, ENV_DEMO_SIGNIN_USER
+
+    # as `krt demo open` does: the dashboard signs in as the demo lead with the documented demo password
+    env = dict(os.environ, KRT_DATABASE_URL=f"sqlite:///{db}")
+    env.pop("KRT_USER", None)
+    env[ENV_DEMO_SIGNIN_USER], env[ENV_DEMO_SIGNIN_PASSWORD] = DEMO_LEAD, DEMO_PASSWORD
     cmd = [sys.executable, "-m", "streamlit", "run", str(REPO / "app.py"), "--server.headless", "true",
            "--server.port", str(port), "--server.address", "127.0.0.1", "--browser.gatherUsageStats", "false",
            "--server.fileWatcherType", "none"]
@@ -134,7 +139,7 @@ def test_the_portfolio_opens_in_a_real_browser_with_grades_and_compound_ids(serv
     from tracker.ui import theme
 
     assert theme.GRADES["high"].badge in body
-    assert "LOCAL MODE" in body
+    assert "Signed in as demo-lead" in body
     # compound ids: the "needs attention" line lists the high-risk compounds as text on the page
     # (the table itself draws on a canvas)
     top = next(n for n, g in demo_graded.items() if g["grade"] == "high")

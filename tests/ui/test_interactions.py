@@ -60,12 +60,15 @@ def test_selecting_a_row_opens_that_compounds_evidence(app_ro, ui):
 
 
 # ------------------------------------------------------------------ gate
-def _decide(at, rule_reasons: dict[str, str], reason: str):
+def _decide(at, rule_reasons: dict[str, str], reason: str, password: str | None = None):
+    from tracker.services.demo import DEMO_PASSWORD
+
     for rule in rule_reasons:
         at.checkbox(key=f"gate_waive_{rule}").check().run()
     for rule, why in rule_reasons.items():
         at.text_input(key=f"gate_why_{rule}").input(why)
     at.text_area(key="gate_reason").input(reason)
+    at.text_input(key="gate_password").input(DEMO_PASSWORD if password is None else password)
     at.button(key="gate_record").click().run()
     assert not at.exception, [e.value for e in at.exception]
     return at
@@ -118,12 +121,15 @@ def test_a_viewer_sees_no_waive_or_approve_controls_and_the_service_refuses_the_
     assert not [c for c in at.checkbox if (c.key or "").startswith("gate_waive_")]
     assert "Only a lead can waive findings and record a gate decision" in ui.text(at)
 
-    ok, message = record_decision(demo_engine, "demo-viewer", name, to, "viewer tries", {r: "viewer waiver" for r in high})
+    from tracker.services.demo import DEMO_PASSWORD
+
+    ok, message = record_decision(demo_engine, "demo-viewer", name, to, "viewer tries", {r: "viewer waiver" for r in high},
+                                  password=DEMO_PASSWORD)
     assert not ok
     assert "only a lead may decide gates" in message
     assert queries.compounds(demo_engine).set_index("name").loc[name, "stage"] == g["stage"]
     refused = queries.audit_events(demo_engine, actor="demo-viewer")
-    assert list(refused["action"]) == ["gate-refused"]
+    assert list(refused["action"]) == ["gate-refused", "sign"]  # the attempt, signed "refused"
 
 
 # ------------------------------------------------------------------ load data
@@ -266,32 +272,61 @@ def test_moving_the_residence_time_changes_the_grade_and_writes_nothing(app, gra
 
 
 # ------------------------------------------------------------------ identity
-def test_local_mode_is_labelled_and_the_role_comes_from_the_users_table(app_ro, ui):
+def _side(at, ui) -> str:
+    return ui.shown(" ".join(m.value for m in at.sidebar.markdown) + " ".join(c.value for c in at.sidebar.caption))
+
+
+def test_local_mode_signs_in_with_a_password_and_the_role_comes_from_the_users_table(app_ro, ui):
     at = app_ro("demo-scientist")
-    side = ui.shown(" ".join(m.value for m in at.sidebar.markdown) + " ".join(c.value for c in at.sidebar.caption))
-    assert "LOCAL MODE" in side
-    assert "demo-scientist** · scientist" in side
+    assert "demo-scientist** · scientist" in _side(at, ui)
+    assert "Signed in as demo-scientist (local mode" in _side(at, ui)
+    next(b for b in at.sidebar.button if b.label == "Sign out").click().run()
+    assert "Not signed in" in _side(at, ui)
 
 
-def test_an_unregistered_local_user_reads_as_a_viewer(app_ro, ui):
-    at = app_ro("stranger")
-    side = ui.shown(" ".join(m.value for m in at.sidebar.markdown) + " ".join(c.value for c in at.sidebar.caption))
-    assert "stranger** · viewer" in side
-    assert "Not in the users table" in side
+def test_nobody_signed_in_reads_as_a_viewer_and_sees_the_sign_in_form(app_ro, monkeypatch, ui):
+    monkeypatch.setenv("KRT_USER", "demo-lead")  # the environment alone never signs anyone in
+    at = app_ro(None)
+    assert "Not signed in" in _side(at, ui) and "read-only" in _side(at, ui)
+    assert [t.key for t in at.sidebar.text_input] == ["krt_signin_name", "krt_signin_password"]
+    at = ui.open(at, "gate")
+    assert "gate_record" not in [b.key for b in at.button]
 
 
-def test_the_first_user_of_an_empty_database_registers_as_lead(app, tmp_path):
+@pytest.mark.parametrize("user, password", [("demo-lead", "not-the-demo-password"), ("stranger", "kinetic-demo-2026")])
+def test_a_wrong_password_or_an_unknown_name_is_refused_at_sign_in(app_ro, user, password, ui):
+    at = app_ro(None)
+    at.sidebar.text_input(key="krt_signin_name").input(user)
+    at.sidebar.text_input(key="krt_signin_password").input(password)
+    next(b for b in at.sidebar.button if b.label == "Sign in").click().run()
+    assert [e.value for e in at.sidebar.error] == ["user name or password is wrong"]
+    assert "Not signed in" in _side(at, ui)
+
+
+def test_the_first_user_of_an_empty_database_registers_as_lead_with_a_password(app, tmp_path, ui):
+    from argon2 import PasswordHasher
+    from sqlalchemy import select
+
     from tracker.db import migrate, queries
+    from tracker.db.models import User
     from tracker.db.session import make_engine
 
     url = f"sqlite:///{tmp_path / 'empty.sqlite'}"
     engine = make_engine(url)
     migrate.upgrade(engine)
-    at = app("first-person", url=url)
-    at.button(key="krt_bootstrap").click().run()
+    at = app(None, url=url)
+    at.sidebar.text_input(key="krt_bootstrap_name").input("first-person")
+    at.sidebar.text_input(key="krt_bootstrap_password").input("first-password-1")
+    at.sidebar.text_input(key="krt_bootstrap_password2").input("first-password-1")
+    next(b for b in at.sidebar.button if b.label == "Register as lead").click().run()
     assert not at.exception
     users = queries.users(engine)
     assert list(zip(users["name"], users["role"])) == [("first-person", "lead")]
+    assert "first-person** · lead" in _side(at, ui)
+    with engine.connect() as conn:
+        stored = conn.execute(select(User.password_hash)).scalar_one()
+    assert stored.startswith("$argon2id$") and "first-password-1" not in stored
+    assert PasswordHasher().verify(stored, "first-password-1")
     engine.dispose()
 
 
@@ -301,17 +336,17 @@ def test_with_sign_in_configured_the_identity_comes_from_st_user(app, demo_engin
     add_user(demo_engine, "ana@example.org", "lead", by="demo-lead")
     auth = {"redirect_uri": "http://localhost:8501/oauth2callback", "cookie_secret": "x" * 32, "client_id": "id",
             "client_secret": "secret", "server_metadata_url": "https://idp.example.org/.well-known/openid-configuration"}
-    at = app("os-user-ignored", secrets={"auth": auth}, st_user={"is_logged_in": True, "email": "ana@example.org", "name": "Ana"})
+    at = app(None, secrets={"auth": auth}, st_user={"is_logged_in": True, "email": "ana@example.org", "name": "Ana"})
     side = ui.shown(" ".join(m.value for m in at.sidebar.markdown) + " ".join(c.value for c in at.sidebar.caption))
     assert "Signed in as ana@example.org" in side
     assert "Ana** · lead" in side
-    assert "LOCAL MODE" not in side
+    assert "local mode" not in side
 
 
 def test_with_sign_in_configured_nobody_signed_in_sees_a_sign_in_button(app_ro):
     auth = {"redirect_uri": "http://localhost:8501/oauth2callback", "cookie_secret": "x" * 32, "client_id": "id",
             "client_secret": "secret", "server_metadata_url": "https://idp.example.org/.well-known/openid-configuration"}
-    at = app_ro("os-user-ignored", secrets={"auth": auth}, st_user={"is_logged_in": False})
+    at = app_ro(None, secrets={"auth": auth}, st_user={"is_logged_in": False})
     assert "Sign in" in [b.label for b in at.sidebar.button]
     assert "Not signed in" in " ".join(m.value for m in at.sidebar.markdown)
 
@@ -331,7 +366,7 @@ def test_a_large_portfolio_is_shown_a_hundred_rows_per_page(app, tmp_path):
     migrate.upgrade(engine)
     import_path(engine, folder, actor="loader", progress=False)
     engine.dispose()
-    at = app("loader", url=url)
+    at = app(None, url=url)
     assert len(at.dataframe[0].value) == 100
     assert "250 compound(s) match; showing 1–100." in [c.value for c in at.caption]
     at.number_input(key="ov_page").set_value(3).run()

@@ -36,7 +36,7 @@ def register(sub: argparse._SubParsersAction) -> None:
     r.add_argument("--from-export", metavar="DIR", dest="from_export", help="restore an export-based backup (any backend)")
     r.add_argument("--to", metavar="URL", help="database to restore into (default: --database / $KRT_DATABASE_URL)")
     r.add_argument("--force", action="store_true", help="replace a SQLite database that already holds data (stop the dashboard first)")
-    r.add_argument("--by", metavar="USER", default=None, help="who restores (recorded in the new audit trail; default $KRT_USER or login name)")
+    r.add_argument("--by", metavar="USER", default=None, help="who restores (recorded in the new, empty database's audit trail; default: the login name)")
     r.add_argument("--json", action="store_true", help="print the summary as JSON")
     r.set_defaults(func=_restore)
 
@@ -97,12 +97,12 @@ def _restore(args) -> int:
             for p in res["problems"]:
                 print(f"krt: error: {p}", file=sys.stderr)
         return 0 if res["ok"] else 1
-    from .io import default_actor
+    import getpass
 
     engine = open_engine(url)
     try:
         with database_errors("restore failed"):
-            res = restore_from_export(args.from_export, engine, actor=args.by or default_actor())
+            res = restore_from_export(args.from_export, engine, actor=args.by or getpass.getuser())
     finally:
         engine.dispose()
     audit = res["audit"]

@@ -37,6 +37,7 @@ def run_load(args) -> int:
     else:
         print(f"demo loaded into {mask_url(database_url())}: {summary['fits_saved']} new fits saved; "
               f"users {', '.join(summary['users'])}")
+        print(f"demo password (every demo user): {summary['demo_password']}   e.g. krt login demo-lead")
     return 0
 
 
@@ -67,9 +68,12 @@ def run_open(args) -> int:
     engine = open_engine(url)
     load_demo(engine)
     engine.dispose()
-    # In local mode the dashboard acts as $KRT_USER; the demo signs you in as its lead unless you say otherwise.
+    # The demo dashboard signs in as the demo lead with the documented demo password (checked against its
+    # stored hash like any sign-in); the gate page still asks for the password again to sign a decision.
+    from ..services.demo import DEMO_LEAD, DEMO_PASSWORD, ENV_DEMO_SIGNIN_PASSWORD, ENV_DEMO_SIGNIN_USER
+
     env = dict(os.environ, KRT_DATABASE_URL=url)
-    env.setdefault("KRT_USER", "demo-lead")
+    env[ENV_DEMO_SIGNIN_USER], env[ENV_DEMO_SIGNIN_PASSWORD] = DEMO_LEAD, DEMO_PASSWORD
     # local mode: listen on the loopback interface only, so no other host can reach the lead's controls
     cmd = [sys.executable, "-m", "streamlit", "run", str(app_path()), "--server.port", str(args.port),
            "--server.address", LOCAL_ADDRESS, "--browser.gatherUsageStats", "false"]
@@ -79,7 +83,8 @@ def run_open(args) -> int:
         cmd += [f"--theme.{key}", value]
     if args.no_browser:
         cmd += ["--server.headless", "true"]
-    print(f"demo database: {path}  (acting as {env['KRT_USER']}; set KRT_USER to change)\nopening the dashboard at http://{LOCAL_ADDRESS}:{args.port}  (Ctrl+C to stop)")
+    print(f"demo database: {path}\nsigned in as {DEMO_LEAD}; demo password (every demo user, also to sign gate decisions): "
+          f"{DEMO_PASSWORD}\nopening the dashboard at http://{LOCAL_ADDRESS}:{args.port}  (Ctrl+C to stop)")
     try:
         return subprocess.call(cmd, env=env)
     except FileNotFoundError as exc:  # pragma: no cover

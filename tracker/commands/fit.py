@@ -81,7 +81,7 @@ def register(subparsers) -> None:
                    help="with --save: store even when a stored residence time differs more than 3x, marking the older "
                    "value superseded (kept on record) and auditing REASON")
     p.add_argument("--by", metavar="USER", default=None,
-                   help="with --save: the user saving (default: $KRT_USER or login name)")
+                   help="with --save: must match the signed-in user (krt login); scientists and leads save")
     p.set_defaults(func=run)
 
 
@@ -126,14 +126,15 @@ def run(args) -> int:
 def _save(args, result, df) -> dict:
     from ..db import migrate
     from ..db.session import database_errors, open_engine
-    from ..services.fits import FIT_OPTIONS, default_actor, save_fit
+    from ..services.fits import FIT_OPTIONS, save_fit
+    from .signin import signed_in_user
 
     raw_options = {k: getattr(args, k) for k in FIT_OPTIONS if getattr(args, k, None) is not None}
     engine = open_engine()
     try:
         with database_errors("saving the fit failed"):
             migrate.require_current(engine)
-            return save_fit(args.save, result, df, args.file, engine=engine, actor=args.by or default_actor(),
+            return save_fit(args.save, result, df, args.file, engine=engine, actor=signed_in_user(engine, args.by),
                             units=df.attrs.get("units", {}), options=raw_options, supersede=args.supersede)
     finally:
         engine.dispose()

@@ -6,9 +6,9 @@
     message, prompt, caution?, ...numbers}]}``; ``grade`` is the worst
     finding's severity (high|moderate|low) or ``clear`` without findings.
 ``krt rules show [--program P] [--json]``
-``krt rules set [--program P] KEY=VALUE... [--unset KEY]... --by LEAD --reason TEXT``
-    A lead's per-program (or, without --program, global) override, stored as a
-    new version and audited.
+``krt rules set [--program P] KEY=VALUE... [--unset KEY]... [--by LEAD] --reason TEXT``
+    A signed-in lead's per-program (or, without --program, global) override,
+    stored as a new version and audited.
 """
 
 from __future__ import annotations
@@ -36,12 +36,6 @@ def database():
         engine.dispose()
 
 
-def default_user() -> str | None:
-    import os
-
-    return os.environ.get("KRT_USER", "").strip() or None
-
-
 def print_json(obj) -> None:
     json.dump(obj, sys.stdout, indent=2, ensure_ascii=False, allow_nan=False)
     sys.stdout.write("\n")
@@ -65,7 +59,7 @@ def register(sub: argparse._SubParsersAction) -> None:
     st.add_argument("settings", nargs="*", metavar="KEY=VALUE", help="e.g. ki_shift_threshold=8")
     st.add_argument("--program", metavar="P", help="program to override (default: every program)")
     st.add_argument("--unset", action="append", default=[], metavar="KEY", help="remove an override (back to the layer below)")
-    st.add_argument("--by", metavar="USER", default=None, help="the lead making the change (default $KRT_USER)")
+    st.add_argument("--by", metavar="USER", default=None, help="must match the signed-in lead (krt login)")
     st.add_argument("--reason", metavar="TEXT", required=True)
     st.set_defaults(func=_rules_set)
     r.set_defaults(func=lambda args: (r.print_help(), 2)[1])
@@ -148,7 +142,9 @@ def _rules_set(args) -> int:
     from ..services.grading import set_rule_override
 
     with database() as engine:
-        info = set_rule_override(engine, args.program, _parse_settings(args.settings), by=args.by or default_user(),
+        from .signin import signed_in_user
+
+        info = set_rule_override(engine, args.program, _parse_settings(args.settings), by=signed_in_user(engine, args.by),
                                  reason=args.reason, unset=args.unset)
     print(f"rule settings stored: {info['version']}")
     return 0

@@ -3,8 +3,6 @@
 from __future__ import annotations
 
 import argparse
-import getpass
-import os
 import sys
 
 from ..db import migrate
@@ -13,22 +11,11 @@ from ..errors import KrtError
 from ..io.specs import SPECS
 
 
-def default_actor() -> str:
-    """``$KRT_USER``, else the login name."""
-    name = os.environ.get("KRT_USER", "").strip()
-    if name:
-        return name
-    try:
-        return getpass.getuser()
-    except (KeyError, OSError):  # pragma: no cover - no login name in some containers
-        return "cli"
-
-
 def register(sub: argparse._SubParsersAction) -> None:
     p = sub.add_parser("import", help="import a CSV file, an .xlsx workbook or a folder of them (all or nothing)")
     p.add_argument("path", metavar="PATH", help="programs.csv, compounds.csv, potency.csv, kinetics.csv, pk.csv, a folder, or a workbook")
     p.add_argument("--table", choices=list(SPECS), help="table of a file whose name does not say")
-    p.add_argument("--by", metavar="USER", default=None, help="user recorded in the audit trail (default: $KRT_USER or login name)")
+    p.add_argument("--by", metavar="USER", default=None, help="must match the signed-in user (krt login); leads and scientists import")
     p.set_defaults(func=_import)
     e = sub.add_parser("export", help="write every table as CSV (and optionally one .xlsx) in the import format")
     e.add_argument("dir", metavar="DIR")
@@ -43,7 +30,9 @@ def _import(args) -> int:
     try:
         with database_errors("import failed"):
             migrate.require_current(engine)
-            summary = import_path(engine, args.path, table=args.table, actor=args.by or default_actor())
+            from .signin import signed_in_user
+
+            summary = import_path(engine, args.path, table=args.table, actor=signed_in_user(engine, args.by))
     finally:
         engine.dispose()
     for w in summary["warnings"]:

@@ -88,7 +88,8 @@ def compounds(bind: Bind, program: str | None = None, stage: str | None = None) 
 
 
 def users(bind: Bind) -> pd.DataFrame:
-    return _frame(bind, select(*User.__table__.columns).order_by(User.id))
+    """Every user, without the password hash (it never leaves the users service)."""
+    return _frame(bind, select(*(c for c in User.__table__.columns if c.name != "password_hash")).order_by(User.id))
 
 
 def rule_configs(bind: Bind, program: str | None = None) -> pd.DataFrame:

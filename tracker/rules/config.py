@@ -22,6 +22,7 @@ import math
 from dataclasses import asdict, dataclass, fields, replace
 from typing import Any, Mapping
 
+from ..domain import STAGES, canonical
 from ..errors import InputError
 
 #: Identifier of the shipped rules and defaults; recorded with every gate decision.
@@ -113,6 +114,13 @@ class RuleConfig:
     #: protects the target (< 1) or speeds its removal (> 1))
     bound_target_degradation_factor: float = 1.0
 
+    # ---- gates: two-person rule for waivers
+    #: waivers on a move into this stage or later need a second lead's signature, given as
+    #: the stage's position in tracker.domain.STAGES (0 hit ... 4 candidate, 5 clinical; 6 =
+    #: never); ``krt rules set two_person_waiver_stage=candidate`` takes a stage name too
+    #: (design choice: the candidate -> clinical step is the one that reaches patients)
+    two_person_waiver_stage: float = 5.0
+
     def __post_init__(self):
         problems = validate_values(asdict(self))
         if problems:
@@ -130,6 +138,8 @@ class RuleConfig:
 
 
 FIELD_NAMES: tuple[str, ...] = tuple(f.name for f in fields(RuleConfig))
+#: settings that name a stage (stored as its position in :data:`tracker.domain.STAGES`)
+STAGE_SETTINGS: tuple[str, ...] = ("two_person_waiver_stage",)
 
 #: Per-field sanity limits (checked for defaults and overrides alike).
 _LIMITS: dict[str, tuple[float, float, str]] = {
@@ -151,6 +161,7 @@ _LIMITS: dict[str, tuple[float, float, str]] = {
     "conflict_fold": (1.0, 1e6, "a fold > 1"),
     "tight_binding_factor": (1.0, 1e3, "a factor >= 1"),
     "bound_target_degradation_factor": (0.0, 100.0, "a factor between 0 and 100"),
+    "two_person_waiver_stage": (1.0, 6.0, "a stage (hit-to-lead ... clinical) or its position 1-6 (6: never)"),
 }
 _STRICT_LOW = {"fold_tolerance", "fold_moderate", "fold_high", "ki_shift_threshold", "no_shift_ratio",
                "insurmountable_fraction", "insurmountable_strong_fraction", "default_engagement_threshold", "conflict_fold"}
@@ -187,6 +198,8 @@ def coerce_overrides(overrides: Mapping[str, Any]) -> dict[str, float]:
         name = str(key).strip().replace("-", "_")
         if name not in FIELD_NAMES:
             raise InputError(f"unknown rule setting {key!r} (known: {', '.join(FIELD_NAMES)})")
+        if name in STAGE_SETTINGS and isinstance(value, str) and canonical(value, STAGES) is not None:
+            value = STAGES.index(canonical(value, STAGES))
         try:
             v = float(value)
         except (TypeError, ValueError):

@@ -1,7 +1,7 @@
 """The demo scenario: three invented programs, 33 compounds, raw time courses.
 
 ``load_demo`` migrates the database, registers three demo users (a lead, a
-scientist, a viewer), imports ``seed_demo/*.csv`` in one transaction and fits
+scientist, a viewer) who share the documented :data:`DEMO_PASSWORD`, imports ``seed_demo/*.csv`` in one transaction and fits
 and saves every raw time course listed in ``seed_demo/timecourses/manifest.csv``
 through the same services the CLI uses, so the audit trail records all of it.
 Loading twice changes nothing, and loading again after using the demo (gate
@@ -17,7 +17,7 @@ import importlib.resources
 from pathlib import Path
 from typing import Any
 
-from sqlalchemy import Engine, func, select
+from sqlalchemy import Engine, select
 
 from ..db import migrate
 from ..db.models import User
@@ -26,6 +26,14 @@ from ..errors import KrtError
 from ..units import parse_quantity
 
 DEMO_USERS = (("demo-lead", "lead"), ("demo-scientist", "scientist"), ("demo-viewer", "viewer"))
+#: The one documented password of the invented demo users (printed by ``krt demo load`` and ``krt demo open``).
+#: Demo only: anyone who reads this can sign in to a demo database as its lead.
+DEMO_PASSWORD = "kinetic-demo-2026"
+DEMO_LEAD = "demo-lead"
+#: ``krt demo open`` hands the dashboard these two variables; the dashboard then signs in with them through the
+#: ordinary password check (local mode only).  Never set them outside a demo.
+ENV_DEMO_SIGNIN_USER = "KRT_DEMO_SIGNIN_USER"
+ENV_DEMO_SIGNIN_PASSWORD = "KRT_DEMO_SIGNIN_PASSWORD"
 IMPORTER = "demo-scientist"
 
 
@@ -47,15 +55,21 @@ def manifest(folder: Path | None = None) -> list[dict[str, str]]:
 
 
 def _ensure_users(engine: Engine) -> None:
-    from .users import add_user
+    """Register the demo users with the demo password (and give it to demo users made before passwords existed)."""
+    from .users import add_user, set_password
 
     with UnitOfWork(engine, write=False) as uow:
-        existing = set(uow.session.execute(select(User.name)).scalars())
-        first = uow.session.execute(select(func.count()).select_from(User)).scalar_one() == 0
+        existing = {r.name: r.password_hash for r in uow.session.execute(select(User.name, User.password_hash))}
+    first = not existing
     for name, role in DEMO_USERS:
         if name not in existing:
-            add_user(engine, name, role, by=None if first else "demo-lead")
+            add_user(engine, name, role, by=None if first else DEMO_LEAD, password=DEMO_PASSWORD,
+                     full_name=name.replace("-", " ").title())
             first = False
+        elif existing[name] is None:
+            nobody_has_one = not any(existing.values())
+            set_password(engine, name, DEMO_PASSWORD, by=None if nobody_has_one else DEMO_LEAD, reason="demo password")
+            existing[name] = "set"
 
 
 def fit_entry(entry: dict[str, str], folder: Path):
@@ -93,4 +107,4 @@ def load_demo(engine: Engine) -> dict[str, Any]:
                        units=df.attrs.get("units", {}),
                        options={k: entry[k] for k in ("tracer_kon", "tracer_koff", "tracer_conc") if entry.get(k)})
         saved += bool(out["created"])
-    return {"import": summary, "fits_saved": saved, "users": [u for u, _ in DEMO_USERS]}
+    return {"import": summary, "fits_saved": saved, "users": [u for u, _ in DEMO_USERS], "demo_password": DEMO_PASSWORD}

@@ -25,7 +25,6 @@ audited with that reason; the grader then reads the new value.
 
 from __future__ import annotations
 
-import getpass
 import hashlib
 import json
 import math
@@ -172,11 +171,6 @@ def describe_saved(saved: dict[str, Any]) -> str:
     return text
 
 
-def default_actor() -> str:
-    """The acting user for command-line writes: ``$KRT_USER`` or the OS login."""
-    return os.environ.get("KRT_USER") or getpass.getuser()
-
-
 def _raw_columns(df: pd.DataFrame) -> dict[str, list]:
     out: dict[str, list] = {}
     if "time" in df:
@@ -244,7 +238,7 @@ def save_fit(
     source: str | os.PathLike,
     *,
     engine: Engine | None = None,
-    actor: str | None = None,
+    actor: str,
     units: dict[str, str] | None = None,
     options: dict[str, Any] | None = None,
     supersede: str | None = None,
@@ -258,7 +252,6 @@ def save_fit(
     :class:`~tracker.errors.NotFoundError`.
     """
     engine = engine or open_engine()
-    actor = actor or default_actor()
     reason = " ".join(str(supersede).split()) if supersede is not None else None
     if supersede is not None and not reason:
         raise InputError("--supersede needs a reason (why the older value is replaced)")

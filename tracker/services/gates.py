@@ -30,9 +30,26 @@ tried what and why it was stopped (ALCOA+: attributable, complete); then
 :class:`~tracker.errors.GateRefused` is raised with a one-line message.
 Unknown compounds and unknown stages are input errors and record nothing.
 
-The decision and audit tables are append-only in the database itself.  The
-audit trail is modelled on 21 CFR Part 11 §11.10(e) and ALCOA+; whether a
-deployment complies is a matter of its validated use, not of this code.
+**Signed decisions** (21 CFR Part 11 §11.50, §11.70, §11.200).  Every gate
+decision is signed: the decider re-enters their password at that moment
+(``password``; checked against its argon2 hash inside the writing
+transaction).  A wrong or missing password, an unknown or deactivated user
+records nothing.  Each signature is a row of the append-only ``signatures``
+table, linked to its decision, with the signer's printed name, the UTC time
+and the meaning (``approved`` or ``refused``; ``waived`` for the waivers;
+``co-signed`` for a second lead), and an audit event in the hash chain.
+
+**Two-person rule.**  Waivers on a move into the stage set by the rule setting
+``two_person_waiver_stage`` (default ``clinical``: the ``candidate`` ->
+``clinical`` step) or later need a second, different lead's signature
+(``second_lead`` and ``second_password``); so does any waiver by a lead whose
+own request for the same move was refused before (nobody waives their own
+refused request alone).  Without it the gate is refused and recorded.
+
+The decision, signature and audit tables are append-only in the database
+itself.  The audit trail is modelled on 21 CFR Part 11 §11.10(e) and ALCOA+;
+whether a deployment complies is a matter of its validated use, not of this
+code.
 """
 
 from __future__ import annotations
@@ -44,16 +61,17 @@ from sqlalchemy import Engine, insert, select, update
 from sqlalchemy.orm import Session
 
 from ..db.audit import append_events, canonical_json
-from ..db.models import Compound, Decision, StageHistory, utcnow
+from ..db.models import Compound, Decision, Signature, StageHistory, utcnow
 from ..db.uow import UnitOfWork
 from ..domain import STAGES, canonical
-from ..errors import GateRefused, InputError, NotFoundError
+from ..errors import GateRefused, InputError, NotFoundError, PermissionDenied
 from ..rules import config as rc
 from .auditlog import decision_fields
 from .grading import grade_compound, load_configs
-from .users import get_user, run_write
+from .users import get_user, printed_name, run_write, verify_signer
 
-__all__ = ["request_gate", "preview_gate", "gate_reasons", "parse_waivers", "decision_evidence", "STAGE_SKIP"]
+__all__ = ["request_gate", "preview_gate", "gate_reasons", "parse_waivers", "decision_evidence", "STAGE_SKIP",
+           "needs_second_lead", "signature_text"]
 
 STAGE_SKIP = rc.STAGE_SKIP
 
@@ -121,6 +139,35 @@ def gate_reasons(compound: str, from_stage: str, to_stage: str, by: str, user: d
     return reasons, used, high
 
 
+def needs_second_lead(to_stage: str, waivers_used: list[str], settings: rc.RuleConfig, own_refusal: bool) -> str | None:
+    """Why this move's waivers need a second lead's signature (two-person rule), or ``None``.  Pure."""
+    if not waivers_used:
+        return None
+    if STAGES.index(to_stage) >= int(round(settings.two_person_waiver_stage)):
+        return f"waivers on a move to {to_stage} need a second lead's signature (two-person rule)"
+    if own_refusal:
+        return "nobody waives their own refused request alone: a second lead must co-sign (two-person rule)"
+    return None
+
+
+def signature_text(sig: Mapping[str, Any]) -> str:
+    """``Lena Novak (lena), 2026-03-01 09:15:02 UTC: approved, as lead`` (one line)."""
+    at = sig["at"]
+    if isinstance(at, str):
+        import datetime as dt
+
+        at = dt.datetime.fromisoformat(at)
+    stamp = at.strftime("%Y-%m-%d %H:%M:%S UTC") if hasattr(at, "strftime") else str(at)
+    who = sig["printed_name"] if sig["printed_name"] == sig["signer"] else f"{sig['printed_name']} ({sig['signer']})"
+    return f"{who}, {stamp}: {sig['meaning']}, as {sig['role']}"
+
+
+def _own_refusal(session: Session, compound_id: int, frm: str, to: str, by: str) -> bool:
+    stmt = select(Decision.id).where(Decision.compound_id == compound_id, Decision.from_stage == frm, Decision.to_stage == to,
+                                     Decision.outcome == "refused", Decision.by_user == by).limit(1)
+    return session.execute(stmt).first() is not None
+
+
 def preview_gate(bind, compound: str, to_stage: str, by: str | None = None, waivers=None) -> dict[str, Any]:
     """What :func:`request_gate` would decide now, without writing anything (for the dashboard's gate review).
 
@@ -156,13 +203,20 @@ def request_gate(
     by: str,
     reason: str,
     waivers=None,
+    *,
+    password: str | None = None,
+    second_lead: str | None = None,
+    second_password: str | None = None,
 ) -> dict[str, Any]:
-    """Approve or refuse moving ``compound`` to ``to_stage`` (see the module docstring).
+    """Approve or refuse moving ``compound`` to ``to_stage`` (see the module docstring), signed by ``by``
+    with ``password`` (and co-signed by ``second_lead`` with ``second_password`` where the two-person rule
+    applies).
 
     Returns the recorded decision (``decision_id``, ``outcome`` ``approved``,
     ``from_stage``, ``to_stage``, ``grade``, ``findings``, ``waivers``,
-    ``ruleset_version``, ``measurements``).  Raises :class:`GateRefused` after
-    recording a refused attempt.
+    ``ruleset_version``, ``measurements``, ``signatures``).  Raises
+    :class:`GateRefused` after recording a refused attempt, and
+    :class:`PermissionDenied` (recording nothing) when the signature fails.
     """
     to = _stage(to_stage)
     reason = " ".join(str(reason or "").split())
@@ -172,7 +226,10 @@ def request_gate(
     wv = {k: (v or reason) for k, v in wv.items()}
     by = " ".join(str(by or "").split())
     if not by:
-        raise InputError("a gate decision needs the deciding user (--by USER)")
+        raise InputError("a gate decision needs the deciding user (sign in first)")
+    second = " ".join(str(second_lead or "").split()) or None
+    if second is not None and second == by:
+        raise PermissionDenied(f"the second signature must come from another lead, not {by!r} again (two-person rule)")
 
     def run(session: Session) -> dict[str, Any]:
         row = _lock_compound(session, compound)
@@ -182,8 +239,13 @@ def request_gate(
         program = entry["program"]
         configs, versions = load_configs(session, [program])
         frm = row.stage
+        signer = verify_signer(session, by, password, ("lead", "scientist", "viewer"), "sign a gate decision")
         user = get_user(session, by)
+        cosigner = verify_signer(session, second, second_password, ("lead",), "co-sign a waiver") if second else None
         reasons, used, high = gate_reasons(compound, frm, to, by, user, entry["findings"], wv)
+        two_person = needs_second_lead(to, used, configs[program], _own_refusal(session, int(row.id), frm, to, by))
+        if two_person and cosigner is None:
+            reasons.append(two_person)
         outcome = "refused" if reasons else "approved"
         measurements = portfolio.measurement_ids(int(row.id))
         snapshot = {
@@ -221,12 +283,27 @@ def request_gate(
             for rule, why in wv.items():
                 events.append(_event(by, "waive", "compound", int(row.id), None,
                                      {"rule": rule, "decision_id": did, "used": rule in used}, why))
+        signatures = [(signer, outcome)]
+        if outcome == "approved" and used:
+            signatures.append((signer, "waived"))
+        if outcome == "approved" and cosigner is not None:
+            signatures.append((cosigner, "co-signed"))
+        signed = []
+        for u, meaning in signatures:
+            sig = {"decision_id": did, "signer": u["name"], "printed_name": printed_name(u), "role": u["role"],
+                   "meaning": meaning, "at": now}
+            sid = session.execute(insert(Signature).returning(Signature.id), [sig]).scalar_one()
+            record = {k: v for k, v in sig.items() if k != "at"} | {"at": now.isoformat(), "compound": compound,
+                                                                    "signature_id": sid}
+            events.append(_event(u["name"], "sign", "signature", sid, None, record,
+                                 f"{meaning}, as {u['role']}: password re-entered at signing"))
+            signed.append(record)
         append_events(session, events)
         return {
             "decision_id": did, "outcome": outcome, "compound": compound, "program": program, "from_stage": frm,
             "to_stage": to, "by": by, "reason": reason, "reasons": reasons, "grade": entry["grade"],
             "findings": entry["findings"], "waivers": waivers_record, "ruleset_version": versions[program],
-            "measurements": measurements,
+            "measurements": measurements, "signatures": signed,
         }
 
     result = run_write(target, run)

@@ -186,7 +186,8 @@ def verify_signer(session: Session, name: str, password: str | None, roles: tupl
     """An electronic signature's check, inside the writing transaction that records it: ``password`` must be
     re-entered now (21 CFR Part 11 §11.200(a)(1)) and ``name`` must hold one of ``roles``."""
     if not password:
-        raise PermissionDenied(f"{action} must be signed: re-enter the password of {name!r} (--password-stdin, or at the prompt)")
+        raise PermissionDenied(f"the signature is missing: re-enter the password of {name!r} to {action} "
+                               "(--password-stdin, or at the prompt)")
     user = _check_credentials(session, name, password, writable=True)
     require_role(session, user["name"], roles, action)
     return user

@@ -152,28 +152,31 @@ def _sidebar(ctx: Context, names: list[str]) -> None:
     with st.sidebar:
         st.selectbox("Program", names, key=PROGRAM_KEY, help="Filters every page to one program.")
         st.divider()
-        if ident is None:
+        if ident is None and identity.auth_configured():
             st.markdown("**Not signed in**")
             st.button("Sign in", on_click=st.login, type="primary")
+        elif ident is None:
+            _local_sign_in(engine)
         else:
             role = ident.effective_role
+            st.markdown(f"**{md(ident.display)}** · {role}")
             if ident.mode == identity.LOCAL:
-                st.markdown(f"**{md(ident.display)}** · {role}")
-                st.caption("LOCAL MODE: nobody signed in; identity is this computer's user "
-                           "(or $KRT_USER). Configure [auth] in secrets for sign-in.")
+                st.caption(f"Signed in as {md(ident.name)} (local mode, this browser session).")
+                if st.button("Sign out", key="krt_signout"):
+                    identity.sign_out()
+                    st.rerun()
             else:
-                st.markdown(f"**{md(ident.display)}** · {role}")
                 st.caption(f"Signed in as {md(ident.name)}")
                 st.button("Sign out", on_click=st.logout)
             if not ident.registered and ident.n_users:
                 st.caption("Not in the users table: read-only. Ask a lead to add you (`krt user add`).")
             elif ident.registered and not ident.active:
                 st.caption("Your user is deactivated: read-only.")
-            if ident.may_bootstrap:
+            if ident.may_bootstrap:  # team mode (OIDC) on an empty users table
                 st.info("No users are registered yet. The first user becomes the lead.")
                 if st.button(f"Register {md(ident.name)} as lead", key="krt_bootstrap"):
                     try:
-                        identity.bootstrap_first_lead(engine, ident)
+                        identity.bootstrap_first_lead(engine, ident.name)
                     except KrtError as exc:  # e.g. someone else registered first: one line
                         st.error(md(exc.one_line()))
                     else:
@@ -182,6 +185,45 @@ def _sidebar(ctx: Context, names: list[str]) -> None:
         st.divider()
         st.caption(f"Database: `{mask_url(ctx_url)}`")
         st.caption(f"Audit events: {ver[1]:,}")
+
+
+def _local_sign_in(engine) -> None:
+    """Local mode, nobody signed in: the sign-in form, or the first lead's registration on an empty users table."""
+    from ..errors import KrtError
+    from . import data, identity
+    from .widgets import md
+
+    if identity.user_count(engine) == 0:
+        st.info("No users are registered yet. The first user becomes the lead.")
+        with st.form("krt_bootstrap_form"):
+            name = st.text_input("Your user name", key="krt_bootstrap_name")
+            pw = st.text_input("Password", type="password", key="krt_bootstrap_password")
+            pw2 = st.text_input("Repeat the password", type="password", key="krt_bootstrap_password2")
+            go = st.form_submit_button("Register as lead", type="primary")
+        if go:
+            if pw != pw2:
+                st.error("The two passwords differ.")
+                return
+            try:
+                identity.bootstrap_first_lead(engine, name, pw)
+            except KrtError as exc:  # e.g. someone else registered first, or a short password: one line
+                st.error(md(exc.one_line()))
+            else:
+                data.clear_caches()
+                st.rerun()
+        return
+    st.markdown("**Not signed in** · read-only")
+    with st.form("krt_signin_form"):
+        name = st.text_input("User name", key="krt_signin_name")
+        pw = st.text_input("Password", type="password", key="krt_signin_password")
+        go = st.form_submit_button("Sign in", type="primary")
+    if go:
+        try:
+            identity.sign_in(engine, name, pw)
+        except KrtError as exc:
+            st.error(md(exc.one_line()))
+        else:
+            st.rerun()
 
 
 def run() -> None:

@@ -37,12 +37,16 @@ def blocking(findings: list[dict[str, Any]], from_stage: str, to_stage: str) -> 
     return uniq
 
 
-def record_decision(engine, by: str, compound: str, to_stage: str, reason: str, waivers: dict[str, str]) -> tuple[bool, str]:
-    """Ask the gate service; returns ``(approved, one-line message)``.  Refusals are recorded by the service."""
-    from tracker.services.gates import request_gate
+def record_decision(engine, by: str, compound: str, to_stage: str, reason: str, waivers: dict[str, str],
+                    password: str | None = None, second_lead: str | None = None,
+                    second_password: str | None = None) -> tuple[bool, str]:
+    """Ask the gate service to record a decision signed with ``password`` (and co-signed by ``second_lead``);
+    returns ``(approved, one-line message)``.  Refusals are recorded by the service; a failed signature records nothing."""
+    from tracker.services.gates import request_gate, signature_text
 
     try:
-        result = request_gate(engine, compound, to_stage, by=by, reason=reason, waivers=waivers or None)
+        result = request_gate(engine, compound, to_stage, by=by, reason=reason, waivers=waivers or None,
+                              password=password, second_lead=second_lead or None, second_password=second_password or None)
     except GateRefused as exc:
         return False, widgets.one_line(exc)
     except KrtError as exc:
@@ -50,7 +54,8 @@ def record_decision(engine, by: str, compound: str, to_stage: str, reason: str, 
     used = [k for k, v in result["waivers"].items() if v.get("used")]
     text = (f"Approved: {compound} moved {result['from_stage']} → {result['to_stage']} "
             f"(decision {result['decision_id']}, grade {result['grade']}"
-            + (f", waived: {', '.join(used)}" if used else "") + ").")
+            + (f", waived: {', '.join(used)}" if used else "") + "). Signed: "
+            + "; ".join(signature_text(sig) for sig in result["signatures"]) + ".")
     return True, text
 
 
@@ -114,13 +119,28 @@ def render() -> None:
         reason = st.text_area("Reason for the decision", key="gate_reason",
                               placeholder="e.g. portfolio review 2026-12: kinetics follow-up agreed")
         missing = [r for r, why in waivers.items() if not why]
+        st.caption(f"Signing as **{ident.name}**: re-enter your password to sign this decision "
+                   "(21 CFR Part 11 §11.200). The record shows your printed name, the UTC time and the meaning.")
+        password = st.text_input("Your password (signature)", type="password", key="gate_password")
+        second_lead, second_password = "", ""
+        if waivers:
+            with st.expander("Second lead's signature (two-person rule)", expanded=to_stage == STAGES[-1]):
+                st.caption("Waivers on the move to clinical (configurable: rule setting two_person_waiver_stage) "
+                           "and waivers of your own refused request need a second lead to co-sign.")
+                second_lead = st.text_input("Second lead", key="gate_second_lead")
+                second_password = st.text_input("Second lead's password", type="password", key="gate_second_password")
         if st.button("Record decision", type="primary", key="gate_record", icon=":material/gavel:"):
             if not reason.strip():
                 st.error("Give a reason for the decision.")
             elif missing:
                 st.error(f"Give a reason for each waiver ({', '.join(missing)}).")
+            elif not password:
+                st.error("Re-enter your password to sign the decision.")
             else:
-                ok, message = record_decision(ctx.engine, ident.name, name, to_stage, reason, waivers)
+                ok, message = record_decision(ctx.engine, ident.name, name, to_stage, reason, waivers, password=password,
+                                              second_lead=second_lead, second_password=second_password)
+                for key in ("gate_password", "gate_second_password"):  # a signature is never kept for the next one
+                    st.session_state.pop(key, None)
                 data.clear_caches()  # approved or refused, a decision and audit events were written
                 st.session_state["gate_message"] = (ok, message)
                 st.rerun()
