@@ -32,6 +32,7 @@ from .models import (
     Potency,
     Program,
     RuleConfig,
+    Signature,
     StageHistory,
     TimeCourse,
     User,
@@ -193,6 +194,17 @@ def decisions(bind: Bind, compounds: Iterable[str] | None = None) -> pd.DataFram
     return _frame(bind, stmt.order_by(Decision.id))
 
 
+def signatures(bind: Bind, compounds: Iterable[str] | None = None) -> pd.DataFrame:
+    """Electronic signatures with their decision: ``id, decision_id, signer, printed_name, role, meaning, at,
+    compound, from_stage, to_stage, outcome``, oldest first."""
+    stmt = (select(*Signature.__table__.columns, Compound.name.label("compound"), Decision.from_stage, Decision.to_stage,
+                   Decision.outcome)
+            .join(Decision, Decision.id == Signature.decision_id).join(Compound, Compound.id == Decision.compound_id))
+    if compounds is not None:
+        stmt = stmt.where(Compound.name.in_(list(compounds)))
+    return _frame(bind, stmt.order_by(Signature.id))
+
+
 def audit_events(
     bind: Bind,
     *,
@@ -273,6 +285,7 @@ __all__ = [
     "time_course",
     "stage_history",
     "decisions",
+    "signatures",
     "audit_events",
     "table_counts",
     "counts",

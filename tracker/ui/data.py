@@ -360,7 +360,16 @@ def read_fits(engine: Engine, name: str) -> list[dict[str, Any]]:
 
 
 def read_decisions(engine: Engine, name: str) -> pd.DataFrame:
-    return queries.decisions(engine, compounds=[name]).sort_values("id", ascending=False).reset_index(drop=True)
+    """The compound's decisions, newest first, with a ``signatures`` column (one line per signature)."""
+    from ..services.gates import signature_text
+
+    df = queries.decisions(engine, compounds=[name]).sort_values("id", ascending=False).reset_index(drop=True)
+    sigs = queries.signatures(engine, compounds=[name])
+    by_decision: dict[int, list[str]] = {}
+    for rec in sigs.to_dict("records"):
+        by_decision.setdefault(int(rec["decision_id"]), []).append(signature_text(rec))
+    df["signatures"] = [" · ".join(by_decision.get(int(i), [])) for i in df["id"]] if not df.empty else pd.Series(dtype=str)
+    return df
 
 
 @st.cache_data(ttl=TTL_S, max_entries=MAX_ENTRIES, show_spinner=False)

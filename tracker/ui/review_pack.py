@@ -258,6 +258,24 @@ def build_pack(
     return pending.render(text, progress)
 
 
+def _signatures_html(engine: Engine, compounds: list[str] | None) -> str:
+    """Gate decisions with their electronic signatures (printed name, UTC time, meaning; 21 CFR Part 11 §11.50)."""
+    from ..db import queries
+    from ..services.gates import signature_text
+
+    sigs = queries.signatures(engine, compounds=compounds)
+    if sigs.empty:
+        return "<h2>Signed gate decisions</h2><p class='meta'>No gate decisions yet.</p>"
+    rows = []
+    for did, group in sigs.groupby("decision_id", sort=True):
+        first = group.iloc[0]
+        signed = "<br>".join(_e(signature_text(r)) for r in group.to_dict("records"))
+        rows.append(f"<tr><td>{int(did)}</td><td>{_e(first['compound'])}</td><td>{_e(first['from_stage'])} → {_e(first['to_stage'])}</td>"
+                    f"<td>{_e(first['outcome'])}</td><td>{signed}</td></tr>")
+    return ("<h2>Signed gate decisions</h2><table><tr><th>Decision</th><th>Compound</th><th>Move</th><th>Outcome</th>"
+            "<th>Signatures (printed name, UTC time: meaning)</th></tr>" + "".join(rows) + "</table>")
+
+
 def _assemble(engine: Engine, *, program: str | None, compounds: Iterable[str] | None, author: str,
               graded: list[dict[str, Any]] | None, with_charts: bool, result: Any = None) -> str:
     from ..db.audit import chain_head
@@ -301,6 +319,7 @@ def _assemble(engine: Engine, *, program: str | None, compounds: Iterable[str] |
     for row in rows.itertuples(index=False):
         g = by_name.get(row.compound, {})
         parts.append(_compound_section(engine, row.compound, g, charted, result) if detailed else _brief_section(row, g))
+    parts.append(_signatures_html(engine, None if names is None and program is None else list(rows["compound"])))
     parts.append("<p class='meta'>Apparent-affinity predictions assume one binding site without depletion; engagement assumes "
                  "free drug. " + html.escape(" ".join(theme.SAFETY_POINTS)) + "</p>")
     parts.append("</body></html>")

@@ -66,6 +66,7 @@ def decisions_frame(df: pd.DataFrame) -> pd.DataFrame:
         "#": df["id"], "When (UTC)": df["at"].dt.strftime("%Y-%m-%d %H:%M"), "From": df["from_stage"].fillna("–"),
         "To": df["to_stage"], "Outcome": df["outcome"], "By": df["by_user"], "Reason": df["reason"].fillna(""),
         "Rule set": df["ruleset_version"].fillna(""),
+        "Signed (printed name, UTC time: meaning)": df["signatures"] if "signatures" in df else "",
     })
 
 
