@@ -24,15 +24,18 @@ from tracker.rules import config as rc
 from tracker.services.auditlog import verify
 from tracker.services.gates import request_gate
 from tracker.services.importing import import_path
-from tracker.services.users import add_user
+from tracker.services.users import add_user, end_session, session_user, start_session
+
+PASSWORD = "test-password-42"  # tests/conftest.py TEST_PASSWORD
 
 # Kept word for word in the README section; {app} and {owner} are krt_app and krt_owner there.
 GRANTS_SQL = """
 GRANT USAGE ON SCHEMA public TO {app};
 GRANT SELECT, INSERT, UPDATE ON ALL TABLES IN SCHEMA public TO {app};
 GRANT USAGE, SELECT ON ALL SEQUENCES IN SCHEMA public TO {app};
-REVOKE UPDATE, DELETE, TRUNCATE ON audit_events, decisions FROM {app};
-REVOKE UPDATE, DELETE, TRUNCATE ON audit_events, decisions FROM PUBLIC;
+REVOKE UPDATE, DELETE, TRUNCATE ON audit_events, decisions, signatures FROM {app};
+REVOKE UPDATE, DELETE, TRUNCATE ON audit_events, decisions, signatures FROM PUBLIC;
+GRANT DELETE ON login_sessions TO {app};
 ALTER DEFAULT PRIVILEGES FOR ROLE {owner} IN SCHEMA public GRANT SELECT, INSERT, UPDATE ON TABLES TO {app};
 ALTER DEFAULT PRIVILEGES FOR ROLE {owner} IN SCHEMA public GRANT USAGE, SELECT ON SEQUENCES TO {app};
 """
@@ -91,10 +94,13 @@ def _sqlstate(engine, sql: str) -> str | None:
 def test_the_app_role_does_every_job_of_the_tracker(app_engine, sample_dir):
     with app_engine.connect() as conn:
         assert conn.execute(text("SELECT current_user")).scalar_one().startswith("krt_app_")
-    add_user(app_engine, "lena", "lead")
+    add_user(app_engine, "lena", "lead", password=PASSWORD)
+    session = start_session(app_engine, "lena", PASSWORD)  # krt login
+    assert session_user(app_engine, session["token"])["name"] == "lena"
     import_path(app_engine, sample_dir, actor="lena")
-    approved = request_gate(app_engine, "AGR-001", "hit-to-lead", "lena", "ready", waivers=list(rc.RULES))
-    assert approved["outcome"] == "approved"
+    approved = request_gate(app_engine, "AGR-001", "hit-to-lead", "lena", "ready", waivers=list(rc.RULES), password=PASSWORD)
+    assert approved["outcome"] == "approved" and approved["signatures"]
+    assert end_session(app_engine, session["token"])  # krt logout deletes the session row
     result = verify(app_engine)
     assert result["ok"], result["message"]
     assert result["head_id"] > 0
@@ -107,15 +113,17 @@ EDITS = (
     "UPDATE decisions SET outcome = 'approved'",
     "DELETE FROM decisions",
     "TRUNCATE decisions",
+    "UPDATE signatures SET meaning = 'refused'",
+    "DELETE FROM signatures",
     "ALTER TABLE audit_events DISABLE TRIGGER ALL",
     "DROP TRIGGER trg_audit_events_no_update_delete ON audit_events",
 )
 
 
 def test_the_app_role_is_refused_by_privilege_before_any_trigger(app_engine, sample_dir):
-    add_user(app_engine, "lena", "lead")
+    add_user(app_engine, "lena", "lead", password=PASSWORD)
     import_path(app_engine, sample_dir, actor="lena")
-    request_gate(app_engine, "AGR-001", "hit-to-lead", "lena", "ready", waivers=list(rc.RULES))
+    request_gate(app_engine, "AGR-001", "hit-to-lead", "lena", "ready", waivers=list(rc.RULES), password=PASSWORD)
     states = {sql: _sqlstate(app_engine, sql) for sql in EDITS}
     assert states == {sql: "42501" for sql in EDITS}  # insufficient_privilege (the trigger would say 23000)
     assert verify(app_engine)["ok"]
