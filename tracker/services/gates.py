@@ -296,7 +296,7 @@ def request_gate(
             record = {k: v for k, v in sig.items() if k != "at"} | {"at": now.isoformat(), "compound": compound,
                                                                     "signature_id": sid}
             events.append(_event(u["name"], "sign", "signature", sid, None, record,
-                                 f"{meaning}, as {u['role']}: password re-entered at signing"))
+                                 f"{sig['printed_name']} signed decision {did}: {meaning}, as {u['role']} (password re-entered)"))
             signed.append(record)
         append_events(session, events)
         return {
