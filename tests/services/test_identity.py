@@ -179,7 +179,7 @@ def test_a_viewer_cannot_gate_import_save_fits_or_add_users(cli, kestrel, portfo
     code, _, err = cli("gate", "K-HIT-1", "--to", "hit-to-lead", "--reason", "x", signed=1)
     assert code == 2 and "is a viewer; only a lead may decide gates" in err
     curve = tmp_path / "off.csv"
-    curve.write_text("time,signal\n" + "".join(f"{t},{2.718281828 ** (-t / 100):.6f}\n" for t in range(0, 600, 20)))
+    curve.write_text("time (s),signal\n" + "".join(f"{t},{2.718281828 ** (-t / 100):.6f}\n" for t in range(0, 600, 20)))
     code, _, err = cli("fit", "dissociation", str(curve), "--save", "K-HIT-1")
     assert code == 2 and "only a scientist or lead may save fits" in err
     with kestrel.connect() as conn:
@@ -192,7 +192,7 @@ def test_a_scientist_saves_a_fit_as_the_signed_in_user(cli, kestrel, tmp_path):
 
     cli("login", "sam", "--password-stdin", stdin=PW + "\n")
     curve = tmp_path / "off.csv"
-    curve.write_text("time,signal\n" + "".join(f"{t},{2.718281828 ** (-t / 100):.6f}\n" for t in range(0, 600, 20)))
+    curve.write_text("time (s),signal\n" + "".join(f"{t},{2.718281828 ** (-t / 100):.6f}\n" for t in range(0, 600, 20)))
     code, out, err = cli("fit", "dissociation", str(curve), "--save", "K-HIT-1")
     assert code == 0, err
     saved = queries.audit_events(kestrel, action="save-fit")
