@@ -52,7 +52,7 @@ def compound_id(engine, name):
 
 
 def test_a_save_prints_what_it_stored_in_units(cli, tmp_path):
-    code, out, err = cli("fit", "dissociation", dissociation_file(tmp_path), "--save", "K-HIT-1", "--by", "sam")
+    code, out, err = cli("fit", "dissociation", dissociation_file(tmp_path), "--save", "K-HIT-1", "--by", "sam", as_user="sam")
     assert code == 0, err
     line = [ln for ln in out.splitlines() if "saved for K-HIT-1" in ln]
     assert len(line) == 1
@@ -63,7 +63,7 @@ def test_a_save_prints_what_it_stored_in_units(cli, tmp_path):
 def test_a_unit_slip_is_refused_and_nothing_is_written(cli, kestrel, tmp_path):
     before = counts(kestrel)
     slip = dissociation_file(tmp_path, header_unit="s")  # minutes read as seconds: RT 60x too short
-    code, out, err = cli("fit", "dissociation", slip, "--save", "K-CAN-1", "--by", "sam")
+    code, out, err = cli("fit", "dissociation", slip, "--save", "K-CAN-1", "--by", "sam", as_user="sam")
     assert code != 0 and out == ""
     lines = err.strip().splitlines()
     assert len(lines) == 1 and "Traceback" not in err
@@ -74,7 +74,7 @@ def test_a_unit_slip_is_refused_and_nothing_is_written(cli, kestrel, tmp_path):
 
 def test_a_value_within_3x_is_stored_beside_the_old_one(cli, kestrel, tmp_path):
     cid = compound_id(kestrel, "K-CAN-1")
-    code, _out, err = cli("fit", "dissociation", dissociation_file(tmp_path, rt_s=2 * RT_6H), "--save", "K-CAN-1", "--by", "sam")
+    code, _out, err = cli("fit", "dissociation", dissociation_file(tmp_path, rt_s=2 * RT_6H), "--save", "K-CAN-1", "--by", "sam", as_user="sam")
     assert code == 0, err
     rows = km_rows(kestrel, cid)
     assert len(rows) == 2 and all(r.superseded_by_id is None for r in rows)
@@ -87,7 +87,7 @@ def test_supersede_keeps_the_old_value_on_record_audits_the_reason_and_regrades(
     (old_id, old_koff, *_), = km_rows(kestrel, cid)
     slip = dissociation_file(tmp_path, header_unit="s")
     reason = "re-measured: the SPR run used the wrong regeneration buffer"
-    code, out, err = cli("fit", "dissociation", slip, "--save", "K-CAN-1", "--by", "sam", "--supersede", reason, "--json")
+    code, out, err = cli("fit", "dissociation", slip, "--save", "K-CAN-1", "--by", "sam", "--supersede", reason, "--json", as_user="sam")
     assert code == 0, err
     saved = json.loads(out)["saved"]
     assert saved["created"] and saved["superseded"] == [{"id": old_id, "residence_time_s": pytest.approx(1 / old_koff)}]
@@ -108,19 +108,20 @@ def test_supersede_keeps_the_old_value_on_record_audits_the_reason_and_regrades(
 
 def test_the_text_report_names_what_was_superseded(cli, tmp_path):
     code, out, err = cli("fit", "dissociation", dissociation_file(tmp_path, header_unit="s"), "--save", "K-CAN-1",
-                         "--by", "lena", "--supersede", "clock fixed")
+                         "--by", "lena", "--supersede", "clock fixed", as_user="lena")
     assert code == 0, err
     assert "superseded for K-CAN-1: kinetic measurement" in out and "residence time 6 h" in out
 
 
 @pytest.mark.parametrize("argv,fragment", [
     (["--by", "vic"], "user 'vic' is a viewer; only a scientist or lead may save fits"),
-    (["--by", "nobody"], "unknown user 'nobody'"),
+    (["--by", "nobody"], "--by 'nobody' does not match the signed-in user 'sam'"),
     (["--by", "sam", "--supersede", "  "], "--supersede needs a reason"),
 ])
 def test_saving_needs_a_scientist_or_lead_and_a_real_reason(cli, kestrel, tmp_path, argv, fragment):
     before = counts(kestrel)
-    code, out, err = cli("fit", "dissociation", dissociation_file(tmp_path), "--save", "K-HIT-1", *argv)
+    signed_in = "vic" if argv[1] == "vic" else "sam"
+    code, out, err = cli("fit", "dissociation", dissociation_file(tmp_path), "--save", "K-HIT-1", *argv, as_user=signed_in)
     assert code != 0
     lines = err.strip().splitlines()
     assert len(lines) == 1 and fragment in lines[0]
@@ -129,9 +130,9 @@ def test_saving_needs_a_scientist_or_lead_and_a_real_reason(cli, kestrel, tmp_pa
 
 def test_saving_the_same_data_twice_adds_nothing_and_says_so(cli, kestrel, tmp_path):
     f = dissociation_file(tmp_path)
-    assert cli("fit", "dissociation", f, "--save", "K-HIT-1", "--by", "sam")[0] == 0
+    assert cli("fit", "dissociation", f, "--save", "K-HIT-1", "--by", "sam", as_user="sam")[0] == 0
     before = counts(kestrel)
-    code, out, err = cli("fit", "dissociation", f, "--save", "K-HIT-1", "--by", "sam")
+    code, out, err = cli("fit", "dissociation", f, "--save", "K-HIT-1", "--by", "sam", as_user="sam")
     assert code == 0, err
     assert "already stored for K-HIT-1" in out and counts(kestrel) == before
 
