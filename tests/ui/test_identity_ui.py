@@ -51,7 +51,7 @@ def test_the_gate_page_has_a_password_field_and_a_wrong_password_records_nothing
     assert at.text_input(key="gate_password").proto.type == at.text_input(key="gate_password").proto.PASSWORD
     before = _counts(demo_engine)
     _fill(at, high, "not-the-password")
-    assert any("user name or password is wrong" in e.value for e in at.error)
+    assert any("user name or password is wrong" in ui.shown(e.value) for e in at.error)
     assert _counts(demo_engine) == before
     assert at.text_input(key="gate_password").value == ""  # the attempted signature is not kept
 
@@ -63,7 +63,7 @@ def test_a_signed_approval_shows_the_signature_on_the_gate_audit_and_review_pack
     high = sorted({f["rule"] for f in g["findings"] if f["severity"] == "high"})
     at = ui.open(app("demo-lead"), "gate", krt_compound=name)
     _fill(at, high, DEMO_PASSWORD)
-    ok = [s.value for s in at.success]
+    ok = [ui.shown(s.value) for s in at.success]
     assert ok and "Signed: Demo Lead (demo-lead), " in ok[0] and "UTC: approved, as lead" in ok[0], ok
     table = at.dataframe[-1].value
     signed = table["Signed (printed name, UTC time: meaning)"].iloc[0]
@@ -85,7 +85,7 @@ def test_a_waiver_into_clinical_needs_the_second_leads_signature_on_the_page(app
     at = ui.open(app("demo-lead"), "gate", krt_compound=name)
     assert at.selectbox(key="gate_to").value == STAGES[-1]
     _fill(at, high, DEMO_PASSWORD)
-    assert any("two-person rule" in e.value for e in at.error)
+    assert any("two-person rule" in ui.shown(e.value) for e in at.error)
     assert queries.compounds(demo_engine).set_index("name").loc[name, "stage"] == g["stage"]
 
     add_user(demo_engine, "second-lead", "lead", by="demo-lead", password="second-password-1", full_name="Sec Ond")
@@ -104,13 +104,13 @@ def test_a_viewer_signed_in_sees_no_gate_controls(app, demo_graded, ui):
     assert "gate_record" not in [b.key for b in at.button]
 
 
-def test_the_demo_dashboard_signs_in_as_the_demo_lead_with_the_demo_password(app, monkeypatch):
+def test_the_demo_dashboard_signs_in_as_the_demo_lead_with_the_demo_password(app, monkeypatch, ui):
     from tracker.services.demo import DEMO_LEAD, ENV_DEMO_SIGNIN_PASSWORD, ENV_DEMO_SIGNIN_USER
 
     monkeypatch.setenv(ENV_DEMO_SIGNIN_USER, DEMO_LEAD)
     monkeypatch.setenv(ENV_DEMO_SIGNIN_PASSWORD, DEMO_PASSWORD)
     at = app(None)
-    side = " ".join(m.value for m in at.sidebar.markdown) + " ".join(c.value for c in at.sidebar.caption)
+    side = ui.shown(" ".join(m.value for m in at.sidebar.markdown) + " ".join(c.value for c in at.sidebar.caption))
     assert "demo-lead** · lead" in side
     monkeypatch.setenv(ENV_DEMO_SIGNIN_PASSWORD, "wrong-demo-password")
     at = app(None)

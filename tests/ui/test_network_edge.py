@@ -53,6 +53,10 @@ def test_markdown_in_names_renders_as_plain_text_on_every_page(app, ui, demo_eng
                                         encoding="utf-8")
     (folder / "kinetics.csv").write_text(f"compound,method,kon,koff\n\"{HOSTILE}\",spr,1e6 /M/s,1e-4 /s\n", encoding="utf-8")
     import_path(demo_engine, folder, actor="demo-lead")
+    from tracker.services.demo import DEMO_PASSWORD
+    from tracker.services.users import add_user
+
+    add_user(demo_engine, HOSTILE_USER, "viewer", by="demo-lead", password=DEMO_PASSWORD)  # signs in like anyone
     at = app(user=HOSTILE_USER)
     seen = _texts(at)
     for view in ("compound", "gate", "queue", "kinetic_map"):
