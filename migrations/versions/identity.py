@@ -7,8 +7,8 @@ with ``ALTER TABLE ... ADD COLUMN`` (no table rebuild, so no trigger is lost).
 allowed values of the CHECK constraints are a frozen copy of ``tracker.domain``
 at this revision.
 
-Revision ID: 0004_identity
-Revises: 0003_fit_supersede
+Revision ID: 0005_identity
+Revises: 0004_potency_conditions
 """
 from __future__ import annotations
 
@@ -19,8 +19,8 @@ from alembic import op
 
 from tracker.db.triggers import create_append_only, drop_append_only
 
-revision: str = "0004_identity"
-down_revision: str | None = "0003_fit_supersede"
+revision: str = "0005_identity"
+down_revision: str | None = "0004_potency_conditions"
 branch_labels: str | Sequence[str] | None = None
 depends_on: str | Sequence[str] | None = None
 
