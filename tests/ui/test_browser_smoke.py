@@ -200,3 +200,18 @@ def test_a_time_course_is_fitted_in_the_browser_with_its_overlay_and_residuals(s
     assert page.locator("[data-testid='stException']").count() == 0
     page.screenshot(path=str(tmp_path / "fit.png"), full_page=True)
     page.close()
+
+
+def test_the_landing_table_fits_1440_pixels_without_scrolling_sideways(server, browser, tmp_path):
+    page = browser.new_page(viewport={"width": 1440, "height": 1000})
+    page.goto(server + "/")
+    _settle(page)
+    page.wait_for_selector("[data-testid='stDataFrame']", timeout=30_000)
+    sizes = page.evaluate("""() => {
+        const s = document.querySelector("[data-testid='stDataFrame'] .dvn-scroller");
+        return s ? [s.scrollWidth, s.clientWidth] : null; }""")
+    page.screenshot(path="/tmp/landing-1440.png")
+    assert sizes is not None, "the data grid's scroller was not found"
+    scroll_width, client_width = sizes
+    assert scroll_width <= client_width + 1, sizes
+    page.close()

@@ -33,7 +33,28 @@ def test_filtering_by_program_shows_only_that_programs_compounds(app_ro, graded)
     table = at.dataframe[0].value
     expected = {n for n, g in graded.items() if g["program"] == "Quillmere"}
     assert set(table["Compound"]) == expected
-    assert set(table["Program"]) == {"Quillmere"}
+
+
+def test_the_landing_table_answers_grade_need_rt_worst_fold_and_best_potency_in_one_line(app_ro, graded):
+    from tracker import fmt
+
+    at = app_ro()
+    table = at.dataframe[0].value.set_index("Compound")
+    # what the lead reads, and nothing that pushes it sideways at 1440 px
+    assert list(table.columns) == ["Grade", "Stage", "What it needs", "RT", "Worst fold", "Best potency"]
+    for name, g in graded.items():
+        row = table.loc[name]
+        assert row["Grade"] == theme.grade_label(g["grade"])
+        if g["findings"]:
+            worst = min(g["findings"], key=lambda f: {"high": 0, "moderate": 1, "low": 2}.get(f["severity"], 9))
+            prompt = " ".join(worst["prompt"].split())
+            assert row["What it needs"].rstrip("…") == prompt[: len(row["What it needs"].rstrip("…"))]
+            assert len(row["What it needs"]) <= 110
+        else:
+            assert row["What it needs"] == "nothing flagged"
+        # units are part of the cell: RT in s/min/h/d, potency in M with an SI prefix
+        assert row["RT"] == "–" or row["RT"].split()[-1] in ("s", "min", "h", "d")
+        assert row["Best potency"] == "–" or row["Best potency"].endswith("M")
 
 
 def test_filtering_by_grade_and_stage_narrows_the_table(app_ro, graded):

@@ -8,6 +8,7 @@ import pandas as pd
 import streamlit as st
 
 from tracker.domain import STAGES
+from tracker import fmt
 from tracker.ui import charts, data, theme, widgets
 from tracker.ui.main import context, open_compound
 
@@ -32,23 +33,77 @@ def filter_sort(df: pd.DataFrame, grades: list[str], sort: str) -> pd.DataFrame:
     return df.sort_values(cols, ascending=asc, na_position="last", kind="mergesort").reset_index(drop=True)
 
 
+PROMPT_CHARS = 110  # the "What it needs" text; the cell shows its start, hovering shows it whole
+# Column widths (px) add up to what a 1440 px screen leaves beside the sidebar, selection column included.
+
+
 def display_frame(df: pd.DataFrame) -> pd.DataFrame:
-    """The table's columns in display units (numbers stay numeric so column sorting works)."""
-    inc = df["best_incubation_s"]
+    """What a lead reads in ten seconds, one line per compound and no sideways scrolling at 1440 px:
+    the grade, what the compound needs (the top finding's decision prompt), its residence time, the worst
+    reading's predicted fold (and which reading), and the best potency with its units.  Every number is
+    the evidence model's, formatted by :mod:`tracker.fmt`; program and series are filters, not columns."""
     return pd.DataFrame({
         "Compound": df["compound"],
-        "Program": df["program"],
-        "Series": df["series"].fillna("–"),
-        "Stage": df["stage"],
         "Grade": df["grade_label"],
-        "Top finding": [_top(r, m) for r, m in zip(df["top_rule"], df["top_message"])],
-        "RT (h)": df["residence_time_s"] / 3600.0,
-        "Best potency (nM)": df["best_potency_M"] / 1e-9,
-        "Readout @ incubation": [_readout(r, t) for r, t in zip(df["best_readout"], inc)],
-        "Worst fold (pred.)": df["worst_fold_shift"],
-        "Worst reading": df["worst_reading"].fillna("–"),
-        "Findings": df["n_findings"],
+        "Stage": df["stage"],
+        "What it needs": [_needs(rule, prompt) for rule, prompt in zip(df["top_rule"], df["top_prompt"])],
+        "RT": [fmt.duration(v, missing="–") for v in df["residence_time_s"]],
+        "Worst fold": [_worst(f, r) for f, r in zip(df["worst_fold_shift"], df["worst_reading"])],
+        "Best potency": [_potency(r, v) for r, v in zip(df["best_readout"], df["best_potency_M"])],
     })
+
+
+def _needs(rule: object, prompt: object) -> str:
+    if not isinstance(rule, str) or not rule:
+        return "nothing flagged"
+    text = " ".join(str(prompt).split()) if isinstance(prompt, str) and prompt.strip() else widgets.rule_title(rule)
+    return text if len(text) <= PROMPT_CHARS else text[: PROMPT_CHARS - 1].rstrip() + "…"
+
+
+def _worst(fold_shift: object, reading: object) -> str:
+    text = fmt.fold(fold_shift, missing="")
+    if not text:
+        return "–"
+    return f"{text} ({reading})" if isinstance(reading, str) and reading else text
+
+
+def _potency(readout: object, value: object) -> str:
+    text = fmt.conc(value, missing="")
+    if not text:
+        return "–"
+    return f"{readout} {text}" if isinstance(readout, str) and readout else text
+
+
+ATTENTION_ROWS = 12
+
+
+def attention_lines(df: pd.DataFrame, limit: int = ATTENTION_ROWS) -> list[str]:
+    """One whole line per high- or moderate-risk compound, worst first: what it needs, with its numbers."""
+    flagged = df[df["grade_key"].isin(["high", "moderate"])].head(limit)
+    lines = []
+    for r in flagged.itertuples(index=False):
+        prompt = " ".join(str(r.top_prompt).split()) if isinstance(r.top_prompt, str) else widgets.rule_title(r.top_rule)
+        facts = [f"RT {fmt.duration(r.residence_time_s)}" if r.residence_time_s == r.residence_time_s else "RT unmeasured"]
+        worst = _worst(r.worst_fold_shift, r.worst_reading)
+        if worst != "–":
+            facts.append(f"worst fold {worst}")
+        pot = _potency(r.best_readout, r.best_potency_M)
+        if pot != "–":
+            facts.append(f"best {pot}")
+        lines.append(f"**{widgets.md(r.compound)}** · {theme.grade_label(r.grade_key)} · "
+                     f"{widgets.md(', '.join(facts))}: {widgets.md(prompt)}")
+    return lines
+
+
+def needs_attention(df: pd.DataFrame) -> None:
+    lines = attention_lines(df)
+    if not lines:
+        return
+    n_flagged = int(df["grade_key"].isin(["high", "moderate"]).sum())
+    more = f" (the first {len(lines)} of {n_flagged})" if n_flagged > len(lines) else ""
+    with st.container(border=True):
+        st.markdown(f"**What the flagged compounds need{more}**")
+        st.markdown("\n".join(f"- {line}" for line in lines))
 
 
 def grade_cell_style(label: object) -> str:
@@ -64,30 +119,17 @@ def styled(df: pd.DataFrame):
     return df.style.map(grade_cell_style, subset=["Grade"])
 
 
-def _top(rule, message) -> str:
-    if not isinstance(rule, str) or not rule:
-        return ""
-    return f"{widgets.rule_title(rule)}: {message}" if isinstance(message, str) else widgets.rule_title(rule)
-
-
-def _readout(readout, t) -> str:
-    if not isinstance(readout, str):
-        return "–"
-    return f"{readout} @ {widgets.dur(t)}"
-
-
 COLUMN_CONFIG = {
-    "Compound": st.column_config.TextColumn(width="small", pinned=True),
-    "Grade": st.column_config.TextColumn(width="medium"),
-    "Top finding": st.column_config.TextColumn(width="large"),
-    "RT (h)": st.column_config.NumberColumn(format="%.3g", help="Residence time 1/koff as the grader uses it (runs combined; "
-                                            "conflicting runs: the longest), hours"),
-    "Best potency (nM)": st.column_config.NumberColumn(format="%.3g", help="Tightest potency value on record, nM"),
-    "Worst fold (pred.)": st.column_config.NumberColumn(
-        format="%.3g×", help="Apparent / true affinity predicted for the compound's worst reading (farthest from 1 either way), "
-                             "from the residence time; the grader's number"),
-    "Worst reading": st.column_config.TextColumn(width="medium", help="Which reading the worst fold belongs to"),
-    "Findings": st.column_config.NumberColumn(format="%d", width="small"),
+    "Compound": st.column_config.TextColumn(width=85, pinned=True),
+    "Grade": st.column_config.TextColumn(width=120),
+    "Stage": st.column_config.TextColumn(width=125),
+    "What it needs": st.column_config.TextColumn(width=310, help="The top finding's decision prompt; the compound "
+                                                 "page has every finding with its numbers"),
+    "RT": st.column_config.TextColumn(width=65, help="Residence time 1/koff as the grader uses it (runs combined; "
+                                      "conflicting runs: the longest)"),
+    "Worst fold": st.column_config.TextColumn(width=135, help="Apparent / true affinity predicted for the reading "
+                                              "farthest from 1 (either way), and which reading it is; the grader's number"),
+    "Best potency": st.column_config.TextColumn(width=100, help="Tightest potency value on record, as measured"),
 }
 
 
@@ -112,10 +154,7 @@ def render() -> None:
         g = theme.GRADES[key]
         col.metric(g.badge, int(counts.get(key, 0)))
 
-    high = df.loc[df["grade_key"] == "high", "compound"].tolist()
-    if high:
-        more = f" and {len(high) - 12} more" if len(high) > 12 else ""
-        st.markdown(f"**Needs attention ({theme.GRADES['high'].badge}):** {widgets.md(', '.join(high[:12]))}{more}")
+    needs_attention(df)
 
     total = len(df)
     n_pages = max(1, math.ceil(total / PAGE_SIZE))
