@@ -140,12 +140,14 @@ def test_the_portfolio_opens_in_a_real_browser_with_grades_and_compound_ids(serv
 
     assert theme.GRADES["high"].badge in body
     assert "Signed in as demo-lead" in body
-    # compound ids: the "needs attention" line lists the high-risk compounds as text on the page
-    # (the table itself draws on a canvas)
+    # compound ids: the "what the flagged compounds need" list names the high-risk compounds as text on the
+    # page with their whole prompt (the table itself draws on a canvas)
     top = next(n for n, g in demo_graded.items() if g["grade"] == "high")
-    attention = page.get_by_text("Needs attention").first
+    attention = page.get_by_text("What the flagged compounds need").first
     assert attention.is_visible()
-    assert top in attention.locator("xpath=..").inner_text()
+    body = page.inner_text("body")
+    listed = body[body.index("What the flagged compounds need"):body.index("compound(s) match")]
+    assert top in listed
     assert (tmp_path / "portfolio.png").stat().st_size > 10_000
     assert page.locator("[data-testid='stException']").count() == 0
     page.close()

@@ -57,6 +57,21 @@ def test_the_landing_table_answers_grade_need_rt_worst_fold_and_best_potency_in_
         assert row["Best potency"] == "–" or row["Best potency"].endswith("M")
 
 
+def test_the_flagged_compounds_needs_are_listed_whole_worst_first(app_ro, graded):
+    from tracker.ui.widgets import md
+
+    at = app_ro()
+    text = "\n".join(m.value for m in at.markdown)
+    flagged = [n for n, g in graded.items() if g["grade"] in ("high", "moderate")]
+    assert "What the flagged compounds need" in text
+    high = [n for n, g in graded.items() if g["grade"] == "high"]
+    for name in high:
+        worst = min(graded[name]["findings"], key=lambda f: {"high": 0, "moderate": 1, "low": 2}.get(f["severity"], 9))
+        line = next(ln for ln in text.splitlines() if f"**{md(name)}**" in ln)
+        assert line.endswith(md(" ".join(worst["prompt"].split())))  # the whole prompt, not cut
+    assert len(flagged) > 12 or all(f"**{md(n)}**" in text for n in flagged)
+
+
 def test_filtering_by_grade_and_stage_narrows_the_table(app_ro, graded):
     at = app_ro()
     at.multiselect(key="ov_grade").select(theme.grade_label("high")).run()
