@@ -54,6 +54,9 @@ def _free_port() -> int:
         return s.getsockname()[1]
 
 
+SERVED: dict[str, Path] = {}  # the served database, for tests that check what the browser wrote
+
+
 @pytest.fixture(scope="module")
 def server(demo_template, tmp_path_factory):
     """The dashboard served by ``streamlit run app.py`` on a copy of the demo database; yields its base URL."""
@@ -61,6 +64,7 @@ def server(demo_template, tmp_path_factory):
     folder = tmp_path_factory.mktemp("browser")
     db = folder / "demo.sqlite"
     shutil.copy2(demo_template, db)
+    SERVED["db"] = db
     port = _free_port()
     log = folder / "streamlit.log"
     from tracker.services.demo import DEMO_LEAD, DEMO_PASSWORD, ENV_DEMO_SIGNIN_PASSWORD, ENV_DEMO_SIGNIN_USER
@@ -212,8 +216,61 @@ def test_the_landing_table_fits_1440_pixels_without_scrolling_sideways(server, b
     sizes = page.evaluate("""() => {
         const s = document.querySelector("[data-testid='stDataFrame'] .dvn-scroller");
         return s ? [s.scrollWidth, s.clientWidth] : null; }""")
-    page.screenshot(path="/tmp/landing-1440.png")
+    page.screenshot(path=str(tmp_path / "landing-1440.png"))
     assert sizes is not None, "the data grid's scroller was not found"
     scroll_width, client_width = sizes
     assert scroll_width <= client_width + 1, sizes
+    page.close()
+
+
+def test_a_double_click_on_the_gate_confirmation_records_one_decision_and_moves_one_stage(server, browser, tmp_path,
+                                                                                      demo_graded):
+    """The lead's gate flow in a real browser: choose, review, then a double click on "Confirm and sign"."""
+    import re
+
+    from sqlalchemy import text
+
+    from tracker.db.session import make_engine
+    from tracker.domain import STAGES
+    from tracker.services.demo import DEMO_PASSWORD
+
+    name, g = next((n, g) for n, g in sorted(demo_graded.items())
+                   if g["stage"] not in STAGES[-2:] and not any(f["severity"] == "high" for f in g["findings"]))
+    to = STAGES[STAGES.index(g["stage"]) + 1]
+    engine = make_engine(f"sqlite:///{SERVED['db']}")
+
+    def state():
+        with engine.connect() as conn:
+            n = conn.execute(text("SELECT count(*) FROM decisions d JOIN compounds c ON c.id = d.compound_id "
+                                  "WHERE c.name = :n"), {"n": name}).scalar()
+            stage = conn.execute(text("SELECT stage FROM compounds WHERE name = :n"), {"n": name}).scalar()
+        return int(n), stage
+
+    before, _ = state()
+    page = browser.new_page(viewport={"width": 1440, "height": 1400})
+    page.goto(f"{server}/stage-gate?compound={name}")
+    _settle(page)
+    page.locator("[data-testid='stSelectbox']").filter(has_text="Move to stage").click()
+    page.get_by_role("option", name=to, exact=True).click()
+    _settle(page)
+    page.get_by_label("Reason for the decision").fill("browser review: kinetics acceptable")
+    page.get_by_label("Your password (signature)").fill(DEMO_PASSWORD)
+    page.get_by_label("Your password (signature)").press("Enter")
+    _settle(page)
+    page.get_by_role("button", name=re.compile(r"^Review: advance")).click()
+    _settle(page)
+    assert f"{g['stage']} → {to}" in page.inner_text("body")
+    page.get_by_role("button", name=re.compile(r"^Confirm and sign")).dblclick()
+    deadline = time.monotonic() + 60  # signing verifies a password hash: wait for the write, not a fixed time
+    while state()[0] == before and time.monotonic() < deadline:
+        time.sleep(0.5)
+    page.get_by_text("Approved:").first.wait_for(timeout=60_000)
+    _settle(page)
+    time.sleep(2)  # a second decision from the second click would have landed by now
+    page.screenshot(path=str(tmp_path / "gate.png"), full_page=True)
+    after, stage = state()
+    engine.dispose()
+    assert after == before + 1, "a double click must record one decision"
+    assert stage == to, "and move the compound one stage only"
+    assert page.locator("[data-testid='stException']").count() == 0
     page.close()

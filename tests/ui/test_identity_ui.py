@@ -34,6 +34,9 @@ def _fill(at, waive: list[str], password: str, second: tuple[str, str] | None = 
         at.text_input(key="gate_second_password").input(second[1])
     at.button(key="gate_record").click().run()
     assert not at.exception, [e.value for e in at.exception]
+    if "gate_confirm" in [b.key for b in at.button]:  # the confirmation step
+        at.button(key="gate_confirm").click().run()
+        assert not at.exception, [e.value for e in at.exception]
     return at
 
 
@@ -48,6 +51,7 @@ def test_the_gate_page_has_a_password_field_and_a_wrong_password_records_nothing
     name, g = _blocked(demo_graded)
     high = sorted({f["rule"] for f in g["findings"] if f["severity"] == "high"})
     at = ui.open(app("demo-lead"), "gate", krt_compound=name)
+    at.selectbox(key="gate_to").set_value(STAGES[STAGES.index(g["stage"]) + 1]).run()
     assert at.text_input(key="gate_password").proto.type == at.text_input(key="gate_password").proto.PASSWORD
     before = _counts(demo_engine)
     _fill(at, high, "not-the-password")
@@ -62,6 +66,7 @@ def test_a_signed_approval_shows_the_signature_on_the_gate_audit_and_review_pack
     name, g = _blocked(demo_graded)
     high = sorted({f["rule"] for f in g["findings"] if f["severity"] == "high"})
     at = ui.open(app("demo-lead"), "gate", krt_compound=name)
+    at.selectbox(key="gate_to").set_value(STAGES[STAGES.index(g["stage"]) + 1]).run()
     _fill(at, high, DEMO_PASSWORD)
     ok = [ui.shown(s.value) for s in at.success]
     assert ok and "Signed: Demo Lead (demo-lead), " in ok[0] and "UTC: approved, as lead" in ok[0], ok
@@ -83,13 +88,14 @@ def test_a_waiver_into_clinical_needs_the_second_leads_signature_on_the_page(app
     name, g = _blocked(demo_graded, to_last=True)
     high = sorted({f["rule"] for f in g["findings"] if f["severity"] == "high"})
     at = ui.open(app("demo-lead"), "gate", krt_compound=name)
-    assert at.selectbox(key="gate_to").value == STAGES[-1]
+    at.selectbox(key="gate_to").set_value(STAGES[-1]).run()
     _fill(at, high, DEMO_PASSWORD)
     assert any("two-person rule" in ui.shown(e.value) for e in at.error)
     assert queries.compounds(demo_engine).set_index("name").loc[name, "stage"] == g["stage"]
 
     add_user(demo_engine, "second-lead", "lead", by="demo-lead", password="second-password-1", full_name="Sec Ond")
-    _fill(at, [], DEMO_PASSWORD, second=("second-lead", "second-password-1"))  # waiver boxes stay ticked
+    at.selectbox(key="gate_to").set_value(STAGES[-1]).run()  # the form was reset by the refusal
+    _fill(at, high, DEMO_PASSWORD, second=("second-lead", "second-password-1"))
     assert at.success, [e.value for e in at.error]
     assert queries.compounds(demo_engine).set_index("name").loc[name, "stage"] == STAGES[-1]
     sigs = queries.signatures(demo_engine, compounds=[name])

@@ -107,6 +107,19 @@ def _decide(at, rule_reasons: dict[str, str], reason: str, password: str | None 
     at.text_input(key="gate_password").input(DEMO_PASSWORD if password is None else password)
     at.button(key="gate_record").click().run()
     assert not at.exception, [e.value for e in at.exception]
+    return confirm(at)
+
+
+def confirm(at):
+    """The gate's confirmation step: click "Confirm and sign" when it is shown."""
+    if "gate_confirm" in [b.key for b in at.button]:
+        at.button(key="gate_confirm").click().run()
+        assert not at.exception, [e.value for e in at.exception]
+    return at
+
+
+def choose_next(at, stage: str):
+    at.selectbox(key="gate_to").set_value(STAGES[STAGES.index(stage) + 1]).run()
     return at
 
 
@@ -117,7 +130,8 @@ def test_a_lead_waives_the_blocking_finding_and_the_approval_lands_in_the_audit_
     to = STAGES[STAGES.index(g["stage"]) + 1]
     high = sorted({f["rule"] for f in g["findings"] if f["severity"] == "high"})
     at = ui.open(app("demo-lead"), "gate", krt_compound=name)
-    assert at.selectbox(key="gate_to").value == to
+    assert at.selectbox(key="gate_to").value is None  # nothing pre-selected
+    choose_next(at, g["stage"])
     _decide(at, {r: f"accepted at review: {r}" for r in high}, "portfolio review: kinetics follow-up agreed")
     assert any(ui.shown(s.value).startswith(f"Approved: {name} moved {g['stage']} → {to}") for s in at.success)
 
@@ -139,6 +153,7 @@ def test_a_lead_who_does_not_waive_is_refused_and_the_attempt_is_recorded(app, g
 
     name, g = _blocked_one_step(graded)
     at = ui.open(app("demo-lead"), "gate", krt_compound=name)
+    choose_next(at, g["stage"])
     _decide(at, {}, "trying without a waiver")
     assert any("gate refused" in e.value and "unwaived high finding" in e.value for e in at.error)
     assert queries.compounds(demo_engine).set_index("name").loc[name, "stage"] == g["stage"]
@@ -433,3 +448,56 @@ def test_a_page_opened_with_a_selection_keeps_it(app_ro, graded, ui):
     calm = sorted(n for n, g in graded.items() if g["grade"] == "clear")[0]
     at = ui.open(app_ro(), "gate", krt_compound=calm)
     assert at.selectbox(key="pick_krt_compound").value == calm
+
+
+def _decision_count(engine) -> int:
+    with engine.connect() as conn:
+        return int(conn.execute(text("SELECT count(*) FROM decisions")).scalar())
+
+
+def test_the_gate_asks_for_confirmation_showing_the_move_and_the_waivers_before_recording(app, graded, ui, demo_engine):
+    from tracker.services.demo import DEMO_PASSWORD
+
+    name, g = _blocked_one_step(graded)
+    high = sorted({f["rule"] for f in g["findings"] if f["severity"] == "high"})
+    to = STAGES[STAGES.index(g["stage"]) + 1]
+    at = choose_next(ui.open(app("demo-lead"), "gate", krt_compound=name), g["stage"])
+    # with the blocking findings unwaived the button says the move is blocked
+    assert "blocked" in at.button(key="gate_record").label
+    for rule in high:
+        at.checkbox(key=f"gate_waive_{rule}").check().run()
+        at.text_input(key=f"gate_why_{rule}").input(f"accepted: {rule}")
+    at.text_area(key="gate_reason").input("review: follow-up agreed")
+    at.text_input(key="gate_password").input(DEMO_PASSWORD).run()
+    assert at.button(key="gate_record").label == f"Review: advance {name}, {g['stage']} → {to}"
+    before = _decision_count(demo_engine)
+    at.button(key="gate_record").click().run()
+    assert _decision_count(demo_engine) == before  # nothing recorded before the confirmation
+    box = " ".join(w.value for w in at.warning)
+    assert f"{g['stage']} → {to}" in box and all(rule in box for rule in high)
+    assert at.button(key="gate_confirm").label == f"Confirm and sign: {g['stage']} → {to}"
+    at.button(key="gate_confirm").click().run()
+    assert _decision_count(demo_engine) == before + 1
+
+
+def test_after_a_decision_the_form_resets_and_a_repeated_submit_records_nothing_more(app, graded, ui, demo_engine):
+    from tracker.ui.views.gate import PENDING_KEY
+
+    name, g = _blocked_one_step(graded)
+    at = choose_next(ui.open(app("demo-lead"), "gate", krt_compound=name), g["stage"])
+    at.text_area(key="gate_reason").input("review without waivers")
+    at.text_input(key="gate_password").input(__import__("tracker.services.demo", fromlist=["x"]).DEMO_PASSWORD)
+    at.button(key="gate_record").click().run()
+    pending = dict(at.session_state[PENDING_KEY])
+    at.button(key="gate_confirm").click().run()  # refused (unwaived high finding) and recorded
+    assert any("gate refused" in e.value for e in at.error)
+    after = _decision_count(demo_engine)
+    # the form starts from nothing: no target, hence no reason, waiver, password or confirm button
+    assert at.selectbox(key="gate_to").value is None
+    assert "gate_record" not in [b.key for b in at.button] and "gate_confirm" not in [b.key for b in at.button]
+    # the same request submitted again (a double click reaching the server twice) writes nothing more
+    at.session_state[PENDING_KEY] = pending
+    at.selectbox(key="gate_to").set_value(pending["to"]).run()
+    at.button(key="gate_confirm").click().run()
+    assert _decision_count(demo_engine) == after
+    assert any("already recorded" in s.value for s in at.success)
