@@ -103,8 +103,12 @@ def test_stage_gate_always_shows_the_safety_caution(app_ro, ui):
 
 
 def test_stage_gate_lists_the_high_findings_that_block_the_next_stage(app_ro, graded, ui):
+    from tracker.domain import STAGES
+
     name, finding = _with_finding(graded, "high")
     at = ui.open(app_ro(), "gate", krt_compound=name)
+    assert "Choose the target stage" in ui.text(at)  # nothing is pre-selected
+    at.selectbox(key="gate_to").set_value(STAGES[STAGES.index(graded[name]["stage"]) + 1]).run()
     text = ui.text(at)
     assert "What blocks this move" in text
     assert finding["message"] in text
