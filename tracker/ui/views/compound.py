@@ -133,7 +133,7 @@ def render() -> None:
     ev = evidence.of(result, name)
     worst = ev.summary.get("worst_reading")
     if isinstance(worst, str):
-        st.markdown(f"**Worst reading:** {worst}, predicted to read {widgets.fold(ev.summary.get('worst_fold_shift'))} "
+        st.markdown(f"**Worst reading:** {widgets.md(worst)}, predicted to read {widgets.fold(ev.summary.get('worst_fold_shift'))} "
                     f"its true value.")
     st.subheader("Potency and what the kinetics predict")
     st.caption(evidence.kinetics_caption(ev))
