@@ -83,9 +83,10 @@ def test_ids_are_read_back_when_another_writers_rows_interleave_on_postgresql(mi
     from tracker.services.auditlog import verify
     from tracker.services.importing import import_path
 
-    with UnitOfWork(migrated_engine) as uow:
-        _program(uow.session, "Shared")
-        uow.commit()
+    programs = tmp_path / "programs"
+    programs.mkdir()
+    (programs / "programs.csv").write_text("program,target\nShared,Kinase S\n", encoding="utf-8")
+    import_path(migrated_engine, programs, actor="ana")  # audited: verify checks every program against its events
     other = UnitOfWork(migrated_engine).__enter__()
     try:
         # another transaction takes the next compound id and stays open

@@ -10,7 +10,7 @@ from openpyxl import Workbook
 
 from tracker.cli import main
 from tracker.db import queries
-from tracker.db.audit import id_ranges, rows_digest, verify_chain
+from tracker.db.audit import id_ranges, verify_chain
 from tracker.db.uow import UnitOfWork
 from tracker.errors import ImportErrors, InputError, PermissionDenied
 from tracker.services.auditlog import verify
@@ -198,20 +198,37 @@ def _summary_of(engine, table: str) -> dict:
     return json.loads(ev["after_json"].iloc[0])
 
 
+def _values_digest(engine, table, after):
+    """SHA-256 over one canonical-JSON line of stored values per row, in id order (the seal's documented form)."""
+    import hashlib
+    import json
+
+    assert after["rows_format"] == 2 and after["row_columns"][0] == "id"
+    h = hashlib.sha256()
+    with engine.connect() as conn:
+        from tracker.db.models import Base
+
+        t = Base.metadata.tables[table]
+        for row in conn.execute(t.select().order_by(t.c.id)):
+            values = [getattr(row, c) for c in after["row_columns"]]
+            values = [v.isoformat() if hasattr(v, "isoformat") else v for v in values]
+            h.update((json.dumps(values, sort_keys=True, separators=(",", ":"), ensure_ascii=False) + "\n").encode())
+    return h.hexdigest()
+
+
 def test_an_import_is_audited_as_one_summary_per_table_naming_every_row_written_by_id_and_digest(loaded):
     compounds = queries.compounds(loaded).sort_values("id")
     after = _summary_of(loaded, "compounds")
     assert after["inserted"] == 4 and after["stages"] == compounds["stage"].value_counts().to_dict()
     assert id_ranges(compounds["id"]) == after["id_ranges"]
-    assert rows_digest(f"{i}\t{n}" for i, n in zip(compounds["id"], compounds["name"])) == after["rows_sha256"]
+    assert after["rows_sha256"] == _values_digest(loaded, "compounds", after)
     # one summary, not one event per compound: the import is one write
     assert queries.audit_events(loaded, action="create", entity_type="compound").empty
     for table, view in (("potency", queries.potency), ("kinetic_measurements", queries.kinetics), ("pk_profiles", queries.pk)):
         rows = view(loaded).sort_values("id")
         after = _summary_of(loaded, table)
         assert after["inserted"] == len(rows) and id_ranges(rows["id"]) == after["id_ranges"], table
-        lines = (f"{i}\t{c}\t{h}" for i, c, h in zip(rows["id"], rows["compound_id"], rows["content_hash"]))
-        assert rows_digest(lines) == after["rows_sha256"], table
+        assert after["rows_sha256"] == _values_digest(loaded, table, after), table
     assert verify(loaded)["ok"]
 
 

@@ -19,12 +19,12 @@ import pandas as pd
 from sqlalchemy import select
 
 from ..db import queries
-from ..db.audit import chain_head, in_ranges, rows_digest, verify_chain
+from ..db.audit import chain_head, in_ranges, verify_chain
 from ..db.models import AuditEvent, Compound, Decision, KineticMeasurement, PKProfile, Potency, TimeCourse
 from ..db.uow import UnitOfWork
 from ..errors import NotFoundError
 
-__all__ = ["verify", "verify_decisions", "verify_imports", "decision_fields", "show", "events_as_records"]
+__all__ = ["verify", "verify_decisions", "decision_fields", "show", "events_as_records"]
 
 #: Decision columns copied into the gate's audit event; the JSON texts enter as SHA-256 digests.
 DECISION_FIELDS = ("compound_id", "from_stage", "to_stage", "outcome", "by_user", "reason", "ruleset_version")
@@ -112,49 +112,43 @@ def _import_events(session):
             yield eid, table, rec
 
 
-def verify_imports(session) -> tuple[bool, int | None, str]:
-    """Each import summary against the rows it wrote: same ids, same digest (see :mod:`tracker.services.importing`).
-
-    A row removed, added inside an imported id range, re-pointed to another
-    compound, given another content hash or (compounds) renamed breaks the
-    match.  Returns ``(ok, first_broken_event_id, message)``.
-    """
-    lines_of: dict[str, dict[int, str]] = {}
-    n = 0
-    for eid, table, rec in _import_events(session):
-        model, line, cols = _IMPORTED[table]
-        if table not in lines_of:
-            lines_of[table] = {r[0]: line(r) for r in session.execute(select(*cols))}
-        stored = lines_of[table]
-        wanted = [(int(lo), int(hi)) for lo, hi in rec["id_ranges"]]
-        expected = sum(hi - lo + 1 for lo, hi in wanted)
-        lines = [stored[i] for lo, hi in wanted for i in range(lo, hi + 1) if i in stored]
-        if len(lines) != expected or rows_digest(lines) != rec["rows_sha256"]:
-            return False, eid, (f"audit event {eid}: the {table} rows it imported no longer match it "
-                                f"({len(lines)} of {expected} present; a row was removed or changed outside the application)")
-        n += 1
-    return True, None, f"{n} import(s) match their rows"
-
-
 def verify(engine) -> dict[str, Any]:
-    """The hash chain, then every decision and every import summary against its rows.
+    """The hash chain, then every decision, import and record that drives a decision against the trail.
 
-    ``{ok, first_broken_id, message, head_id, head_hash}``.
+    ``{ok, first_broken_id, message, head_id, head_hash, events, problems}``;
+    ``message`` names the first problem, ``problems`` lists up to 20.
     """
+    from . import integrity
+
     with UnitOfWork(engine, write=False) as uow:
-        ok, broken, message = verify_chain(uow.session)
-        head_id, head_hash = chain_head(uow.session)
+        s = uow.session
+        ok, broken, message = verify_chain(s)
+        head_id, head_hash = chain_head(s)
+        problems: list[tuple[int | None, str]] = [] if ok else [(broken, message)]
+        parts = [message]
         if ok:
-            d_ok, d_broken, d_message = verify_decisions(uow.session)
+            d_ok, d_broken, d_message = verify_decisions(s)
             if not d_ok:
-                ok, broken, message = False, d_broken, d_message
-            else:
-                i_ok, i_broken, i_message = verify_imports(uow.session)
-                if not i_ok:
-                    ok, broken, message = False, i_broken, i_message
-                else:
-                    message = f"{message}; {d_message}; {i_message}"
-    return {"ok": ok, "first_broken_id": broken, "message": message, "head_id": head_id, "head_hash": head_hash}
+                problems.append((d_broken, d_message))
+            trail = integrity.Trail(s)
+            problems += integrity.check_decision_events(s, trail)
+            problems += integrity.check_stages(s)
+            row_problems, n_imports = integrity.check_rows(s, trail)
+            problems += row_problems
+            problems += integrity.check_stage_history(s, trail)
+            problems += integrity.check_programs(s, trail)
+            problems += integrity.check_users(s, trail)
+            problems += integrity.check_rules(s, trail)
+            parts += [d_message, f"{n_imports} import(s) match their rows",
+                      "stages, stage history, measurements, programs, users and rule settings match their events"]
+    if problems:
+        broken, message = problems[0]
+        if len(problems) > 1:
+            message += f" (and {len(problems) - 1} more problem(s))"
+        return {"ok": False, "first_broken_id": broken, "message": message, "head_id": head_id, "head_hash": head_hash,
+                "events": head_id, "problems": [m for _, m in problems[:20]]}
+    return {"ok": True, "first_broken_id": None, "message": "; ".join(parts), "head_id": head_id, "head_hash": head_hash,
+            "events": head_id, "problems": []}
 
 
 def show(engine, compound: str | None = None, limit: int | None = None, newest_first: bool = False) -> pd.DataFrame:

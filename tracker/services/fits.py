@@ -7,7 +7,8 @@ A saved fit becomes
 * for fits that yield a koff (dissociation, association, competition kinetics,
   jump dilution, washout recovery) a ``kinetic_measurements`` row with kon,
   koff, KD and their 95% bounds, linked to the time course;
-* one audit event per row written.
+* one audit event per row written, sealing the row's stored values
+  (:func:`tracker.db.seals.seal_row`, re-checked by ``krt audit verify``).
 
 Ki-shift, insurmountability and Morrison fits carry evidence other than a
 rate constant (a ratio, a fraction of Emax, a Ki), so they are stored as time
@@ -38,6 +39,7 @@ from sqlalchemy import Engine, insert, select, update
 
 from ..db.audit import append_event, canonical_json
 from ..db.models import Compound, KineticMeasurement, TimeCourse, utcnow
+from ..db.seals import seal_row
 from ..db.session import open_engine, with_retry
 from ..db.uow import UnitOfWork
 from ..errors import FitError, InputError, KrtError, NotFoundError
@@ -293,7 +295,8 @@ def save_fit(
             ).returning(TimeCourse.id)).scalar_one()
             append_event(s, user, "save-fit", "time_course", tc_id, None,
                          {"compound": compound, "fit_method": method, "source": meta["source"],
-                          "n_points": keys.get("n_points"), "warnings": [w["code"] for w in keys.get("warnings", [])]},
+                          "n_points": keys.get("n_points"), "warnings": [w["code"] for w in keys.get("warnings", [])],
+                          **seal_row(s, TimeCourse.__tablename__, tc_id)},
                          reason or "fit saved with its raw data")
             km_id = None
             if koff is not None and method not in QUALITATIVE:
@@ -317,7 +320,8 @@ def save_fit(
                 km_id = s.execute(insert(KineticMeasurement).values(**row).returning(KineticMeasurement.id)).scalar_one()
                 append_event(s, user, "create", "kinetic_measurement", km_id, None,
                              {"compound": compound, "method": row["method"], "koff_per_s": koff, "kon_per_M_s": kon,
-                              "time_course_id": tc_id}, reason or "from a saved fit")
+                              "time_course_id": tc_id, **seal_row(s, KineticMeasurement.__tablename__, km_id)},
+                             reason or "from a saved fit")
                 now = utcnow()
                 for c in conflicts:
                     s.execute(update(KineticMeasurement).where(KineticMeasurement.id == c["id"])
@@ -325,7 +329,8 @@ def save_fit(
                     append_event(s, user, "supersede", "kinetic_measurement", c["id"],
                                  {"superseded_by_id": None, "koff_per_s": c["koff_per_s"]},
                                  {"superseded_by_id": km_id, "new_koff_per_s": koff,
-                                  "residence_time_ratio": c["ratio"]}, reason)
+                                  "residence_time_ratio": c["ratio"], "superseded_reason": reason,
+                                  "superseded_at": now}, reason)
             uow.commit()
             return {"compound": compound, "time_course_id": tc_id, "kinetic_measurement_id": km_id, "created": True,
                     "stored": stored, "superseded": [{"id": c["id"], "residence_time_s": c["residence_time_s"]}

@@ -17,11 +17,11 @@ An import is one write, and it is audited as one: besides one event per
 program created and one per program or compound updated (with before and
 after), each table it added rows to gets one ``import`` event naming the
 files, the counts, the new rows' ids as ``id_ranges`` and ``rows_sha256``,
-a SHA-256 over one line per row (``id<TAB>name`` for compounds,
-``id<TAB>compound_id<TAB>content_hash`` for measurements; see
-:func:`tracker.db.audit.rows_digest`).  The event is part of the hash chain,
-so who imported which rows when stays attributable and a row later added,
-dropped or renamed outside the application no longer matches its event.
+a SHA-256 over the stored values of every new row, read back in the same
+transaction (:func:`tracker.db.seals.seal_rows`).  The event is part of the
+hash chain, so who imported which rows when stays attributable, and a row
+later added, dropped or edited (a potency value, a stage) outside the
+application no longer matches its event (``krt audit verify``).
 Rows are written with :func:`tracker.db.bulk.insert_columns` (executemany on
 SQLite, COPY on PostgreSQL).
 """
@@ -43,9 +43,10 @@ from sqlalchemy import Engine, func, insert, select, update
 from sqlalchemy import exc as sa_exc
 from sqlalchemy.orm import Session
 
-from ..db.audit import append_events, id_ranges, rows_digest
+from ..db.audit import append_events
 from ..db.bulk import insert_columns, insert_columns_ids
 from ..db.models import Compound, KineticMeasurement, PKProfile, Potency, Program, StageHistory, User
+from ..db.seals import seal_rows
 from ..db.session import with_retry
 from ..db.uow import UnitOfWork
 from ..errors import ImportErrors, InputError, PermissionDenied
@@ -282,7 +283,7 @@ def _write(session: Session, v: Validated, actor: str, prog: Progress, keep_exis
             events.append(_event(actor, "import", Compound.__tablename__, None, None,
                                  {"files": v.files["compounds"], "rows": len(compounds_df), "inserted": n_new,
                                   "stages": {k: int(c) for k, c in new["stage"].value_counts().sort_index().items()},
-                                  **_identity(new_ids.values(), (f"{i}\t{name}" for name, i in new_ids.items()))}, reason))
+                                  **seal_rows(session, Compound.__tablename__, new_ids.values())}, reason))
         compound_ids = dict(zip(stored_compounds["name"], stored_compounds["id"])) | new_ids
     else:
         compound_ids = dict(zip(stored_compounds["name"], stored_compounds["id"]))
@@ -308,11 +309,10 @@ def _write(session: Session, v: Validated, actor: str, prog: Progress, keep_exis
         n_rows = len(new_ids)
         summary["tables"][name] = _stat(v, name, n_rows, 0, len(df) - n_rows)
         if n_rows:
-            inserted = list(zip(new_ids, values["compound_id"], values["content_hash"]))
             events.append(
                 _event(actor, "import", model.__tablename__, None, None,
                        {"files": v.files[name], "rows": len(df), "inserted": n_rows, "duplicates_skipped": len(df) - n_rows,
-                        **_identity((i for i, _, _ in inserted), (f"{i}\t{c}\t{h}" for i, c, h in inserted))}, reason)
+                        **seal_rows(session, model.__tablename__, new_ids)}, reason)
             )
 
     append_events(session, events)
@@ -554,11 +554,6 @@ def _insert(session: Session, table, cols: dict[str, list[Any]], constants: dict
         ids += got
         prog.say(f"{label} {min(i + CHUNK, n):,}/{n:,}", transient=True)
     return ids
-
-
-def _identity(ids: Iterable[int], lines: Iterable[str]) -> dict[str, Any]:
-    """What an import's summary event records of the rows it wrote: their ids as runs and a digest of the rows."""
-    return {"id_ranges": id_ranges(ids), "rows_sha256": rows_digest(lines)}
 
 
 def _event(actor, action, entity_type, entity_id, before, after, reason) -> dict[str, Any]:
