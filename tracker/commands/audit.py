@@ -1,8 +1,10 @@
 """``krt audit verify`` and ``krt audit show [--compound C] [--json] [--limit N]``.
 
-``verify`` re-computes the SHA-256 chain and checks every gate decision
-against the event written with it; exit 0 when intact, 1 naming the first
-broken event otherwise.  The trail is modelled on 21 CFR Part 11
+``verify [--expect-head HASH]`` re-computes the SHA-256 chain, checks the
+keyed checkpoints (when an audit key is configured) and every record that
+drives a decision against the events that wrote it; exit 0 when intact, 1
+naming the first problem otherwise.  ``head [--json]`` prints the head to keep
+outside the database; ``keygen FILE`` writes a checkpoint key.  The trail is modelled on 21 CFR Part 11
 §11.10(e) and ALCOA+ (no compliance is claimed; that is a matter of validated use).
 """
 
@@ -17,9 +19,17 @@ from .grade import database, print_json
 def register(sub: argparse._SubParsersAction) -> None:
     p = sub.add_parser("audit", help="verify or show the tamper-evident audit trail")
     a = p.add_subparsers(dest="audit_command", metavar="ACTION", parser_class=type(p))
-    v = a.add_parser("verify", help="check the hash chain; exit 0 when intact, 1 naming the first broken event")
+    v = a.add_parser("verify", help="check the hash chain, its keyed checkpoints and the data it fixes; exit 0 when intact, 1 naming the first problem")
+    v.add_argument("--expect-head", metavar="HASH", dest="expect_head",
+                   help="a head hash kept elsewhere ('krt audit head'); fail when it is no longer in the chain")
     v.add_argument("--json", action="store_true")
     v.set_defaults(func=_verify)
+    h = a.add_parser("head", help="print the chain's head (hash and event count) to keep outside the database")
+    h.add_argument("--json", action="store_true")
+    h.set_defaults(func=_head)
+    k = a.add_parser("keygen", help="write a new random audit checkpoint key to FILE (mode 600; never overwrites)")
+    k.add_argument("file", metavar="FILE")
+    k.set_defaults(func=_keygen)
     s = a.add_parser("show", help="list audit events")
     s.add_argument("--compound", metavar="C", help="only events about this compound, its decisions and measurements")
     s.add_argument("--limit", type=int, metavar="N", help="newest N events")
@@ -32,7 +42,7 @@ def _verify(args) -> int:
     from ..services.auditlog import verify
 
     with database() as engine:
-        res = verify(engine)
+        res = verify(engine, expect_head=args.expect_head)
     if args.json:
         print_json(res)
     elif res["ok"]:
@@ -41,6 +51,26 @@ def _verify(args) -> int:
         where = f" at event {res['first_broken_id']}" if res["first_broken_id"] is not None else ""
         print(f"krt: audit verify FAILED{where}: {res['message']}", file=sys.stderr)
     return 0 if res["ok"] else 1
+
+
+def _head(args) -> int:
+    from ..services.auditlog import head
+
+    with database() as engine:
+        res = head(engine)
+    if args.json:
+        print_json(res)
+    else:
+        print(f"{res['head_hash']}  {res['events']} event(s)" + (f", last at {res['at']}" if res["at"] else ""))
+    return 0
+
+
+def _keygen(args) -> int:
+    from ..db.anchor import ENV_KEY_FILE, write_key_file
+
+    path = write_key_file(args.file)
+    print(f"wrote a new audit key to {path} (mode 600); set {ENV_KEY_FILE}={path} for every process that writes or verifies")
+    return 0
 
 
 def _show(args) -> int:

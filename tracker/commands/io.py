@@ -59,4 +59,7 @@ def _export(args) -> int:
         print(f"{table:<10} {s['rows']:>7,} rows -> {s['file']}")
     if "xlsx" in summary:
         print(f"workbook -> {summary['xlsx']}")
+    if "audit_head" in summary:
+        h = summary["audit_head"]
+        print(f"audit head {h['head_hash']} ({h['events']} event(s)) -> audit_head.json")
     return 0

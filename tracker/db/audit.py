@@ -15,8 +15,11 @@ on SQLite every writing unit of work begins with ``BEGIN IMMEDIATE``, which
 serialises writers.  Ids are assigned as last id + 1 under that lock, so the
 sequence has no gaps and a deleted event is visible as a missing id.
 
-What the chain cannot show on its own: events cut off the *end* of the table.
-Keep :func:`chain_head` somewhere else (a report, a backup manifest) to anchor it.
+What the chain cannot show on its own: events cut off the *end* of the table,
+or a chain rewritten and re-hashed by someone with database rights.  Keyed
+checkpoints and the time check are in :mod:`tracker.db.anchor`; keep
+:func:`chain_head` somewhere else (a report, a backup manifest) and check it
+with :func:`find_head` (``krt audit verify --expect-head``).
 
 Bulk writes (an import of 10,000 compounds) append one summary event per
 table rather than one per row: its ``after`` names the rows by id
@@ -29,6 +32,7 @@ from __future__ import annotations
 
 import datetime as dt
 import hashlib
+import hmac
 import json
 import math
 from typing import Any
@@ -36,6 +40,7 @@ from typing import Any
 from sqlalchemy import insert, select, text
 from sqlalchemy.orm import Session
 
+from . import anchor
 from .models import AuditEvent
 
 GENESIS_HASH = "0" * 64
@@ -88,6 +93,24 @@ def _lock_chain(session: Session) -> None:
         session.execute(text("SELECT pg_advisory_xact_lock(CAST(:k AS BIGINT))"), {"k": ADVISORY_LOCK_KEY})
 
 
+def event_stamp(session: Session) -> str:
+    """The time of a new event: the PostgreSQL server's clock (``clock_timestamp()``), else this machine's, UTC."""
+    if session.get_bind().dialect.name == "postgresql":
+        now = session.execute(text("SELECT clock_timestamp()")).scalar_one()
+        return now.astimezone(dt.timezone.utc).isoformat(timespec="microseconds")
+    return utc_stamp()
+
+
+def _check_clock(session: Session, last_id: int, last_at: str | None, at: str) -> None:
+    prev, new = anchor.parse_at(last_at), anchor.parse_at(at)
+    tolerance = anchor.clock_tolerance_s()
+    if prev is not None and new is not None and (prev - new).total_seconds() > tolerance:
+        whose = "the database server's clock" if session.get_bind().dialect.name == "postgresql" else "this machine's clock"
+        raise anchor.ClockError(
+            f"refused to record an audit event dated {at}: the last event ({last_id}) is dated {last_at}, and events may not "
+            f"go back in time by more than {tolerance:g} s (check {whose}); nothing was written")
+
+
 def append_event(
     session: Session,
     actor: str,
@@ -116,14 +139,19 @@ def append_events(session: Session, events: list[dict[str, Any]], chunk: int = 5
     """
     if not events:
         return []
+    key = anchor.load_key()
     _lock_chain(session)
-    last = session.execute(select(AuditEvent.id, AuditEvent.hash).order_by(AuditEvent.id.desc()).limit(1)).first()
+    last = session.execute(select(AuditEvent.id, AuditEvent.hash, AuditEvent.at).order_by(AuditEvent.id.desc()).limit(1)).first()
     next_id, prev = ((last.id + 1), last.hash) if last else (1, GENESIS_HASH)
+    at = event_stamp(session)
+    if last is not None:
+        _check_clock(session, last.id, last.at, at)
     stored: list[dict[str, Any]] = []
-    for ev in events:
+    pending = list(events)
+    for i, ev in enumerate(pending):
         fields: dict[str, Any] = {
             "id": next_id,
-            "at": utc_stamp(),
+            "at": at,
             "actor": str(ev["actor"]),
             "action": str(ev["action"]),
             "entity_type": str(ev["entity_type"]),
@@ -136,6 +164,8 @@ def append_events(session: Session, events: list[dict[str, Any]], chunk: int = 5
         fields["hash"] = prev = event_hash(fields)
         stored.append(fields)
         next_id += 1
+        if key is not None and i == len(pending) - 1 and ev.get("action") != anchor.CHECKPOINT_ACTION:
+            pending.append(anchor.checkpoint_event(key, str(ev["actor"]), fields["id"], fields["hash"]))
     for i in range(0, len(stored), chunk):
         session.execute(insert(AuditEvent), stored[i : i + chunk])
     return stored
@@ -182,6 +212,8 @@ def verify_chain(session: Session, batch: int = 5000) -> tuple[bool, int | None,
     prev_hash = GENESIS_HASH
     expected_id = 1
     n = 0
+    tolerance = anchor.clock_tolerance_s()
+    prev_at = None
     result = session.execute(select(*cols).order_by(AuditEvent.id).execution_options(yield_per=batch))
     for row in result:
         fields = row._asdict()
@@ -197,10 +229,67 @@ def verify_chain(session: Session, batch: int = 5000) -> tuple[bool, int | None,
         if event_hash(fields) != fields["hash"]:
             result.close()
             return False, eid, f"audit event {eid}: stored hash does not match its contents (edited after it was written)"
+        at = anchor.parse_at(fields["at"])
+        if prev_at is not None and at is not None and (prev_at - at).total_seconds() > tolerance:
+            result.close()
+            return False, eid, (f"audit event {eid} is dated {fields['at']}, before the event ahead of it "
+                                f"({prev_at.isoformat()}) by more than {tolerance:g} s (a clock was set back)")
+        prev_at = at if at is not None else prev_at
         prev_hash = fields["hash"]
         expected_id += 1
         n += 1
     return True, None, f"audit chain intact: {n} event(s), head {prev_hash[:12]}"
 
 
-__all__ = ["append_event", "append_events", "verify_chain", "chain_head", "id_ranges", "in_ranges", "rows_digest", "canonical_json", "event_hash", "utc_stamp", "GENESIS_HASH", "ADVISORY_LOCK_KEY"]
+def verify_checkpoints(session: Session, key: bytes | None) -> tuple[bool, int | None, str]:
+    """The keyed checkpoints (see :mod:`tracker.db.anchor`) against the key; call after :func:`verify_chain` passed.
+
+    With a key: every checkpoint's HMAC is right, covers the event just before
+    it with that event's current hash, and the chain ends with a checkpoint.
+    Without a key: nothing can be checked, and the message says so.
+    """
+    cps = session.execute(select(AuditEvent.id, AuditEvent.after_json).where(
+        AuditEvent.action == anchor.CHECKPOINT_ACTION, AuditEvent.entity_type == anchor.CHECKPOINT_ENTITY).order_by(AuditEvent.id)).all()
+    head_id, _ = chain_head(session)
+    if key is None:
+        if cps:
+            return True, None, (f"{len(cps)} keyed checkpoint(s) not checked: no audit key configured "
+                                f"(${anchor.ENV_KEY_FILE} or ${anchor.ENV_KEY})")
+        return True, None, "no keyed checkpoints (no audit key configured): a rewrite with database rights would go unseen"
+    if head_id == 0:
+        return True, None, "empty chain, nothing to anchor"
+    kid = anchor.key_id(key)
+    covered = {r.id: r.hash for r in session.execute(select(AuditEvent.id, AuditEvent.hash).where(
+        AuditEvent.id.in_([c.id - 1 for c in cps])))} if cps else {}
+    for cid, after in cps:
+        try:
+            rec = json.loads(after or "{}")
+        except ValueError:
+            rec = {}
+        covers, covers_hash = rec.get("covers"), str(rec.get("covers_hash") or "")
+        if covers != cid - 1:
+            return False, cid, f"checkpoint event {cid} anchors event {covers}, not the event just before it (moved or forged)"
+        if rec.get("key_id") != kid:
+            return False, cid, (f"checkpoint event {cid} was made with another audit key ({rec.get('key_id')}; "
+                                f"the configured key is {kid})")
+        if not hmac.compare_digest(anchor.checkpoint_mac(key, covers, covers_hash), str(rec.get("hmac") or "")):
+            return False, cid, f"checkpoint event {cid}: its HMAC does not match (written without the audit key: forged)"
+        if covered.get(covers) != covers_hash:
+            return False, cid, (f"checkpoint event {cid}: event {covers} no longer has the hash it anchored "
+                                "(the chain was rewritten and re-hashed)")
+    if not cps:
+        return False, 1, (f"no keyed checkpoint anchors the chain's {head_id} event(s) although an audit key is configured "
+                          "(written without the key, or the checkpoints were removed)")
+    last = cps[-1].id
+    if last != head_id:
+        return False, last + 1, (f"events {last + 1}..{head_id} come after the last keyed checkpoint (event {last}): "
+                                 "written without the audit key, or forged")
+    return True, None, f"{len(cps)} keyed checkpoint(s) verified (key {kid}); the chain ends with one"
+
+
+def find_head(session: Session, head_hash: str) -> int | None:
+    """The id of the event whose hash is ``head_hash`` (its hash covers its id, so it can sit nowhere else), or ``None``."""
+    return session.execute(select(AuditEvent.id).where(AuditEvent.hash == head_hash)).scalar()
+
+
+__all__ = ["append_event", "append_events", "verify_chain", "verify_checkpoints", "find_head", "event_stamp", "chain_head", "id_ranges", "in_ranges", "rows_digest", "canonical_json", "event_hash", "utc_stamp", "GENESIS_HASH", "ADVISORY_LOCK_KEY"]

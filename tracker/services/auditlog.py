@@ -19,12 +19,12 @@ import pandas as pd
 from sqlalchemy import select
 
 from ..db import queries
-from ..db.audit import chain_head, in_ranges, verify_chain
+from ..db.audit import chain_head, find_head, in_ranges, verify_chain, verify_checkpoints
 from ..db.models import AuditEvent, Compound, Decision, KineticMeasurement, PKProfile, Potency, TimeCourse
 from ..db.uow import UnitOfWork
-from ..errors import NotFoundError
+from ..errors import InputError, NotFoundError
 
-__all__ = ["verify", "verify_decisions", "decision_fields", "show", "events_as_records"]
+__all__ = ["verify", "head", "verify_decisions", "decision_fields", "show", "events_as_records"]
 
 #: Decision columns copied into the gate's audit event; the JSON texts enter as SHA-256 digests.
 DECISION_FIELDS = ("compound_id", "from_stage", "to_stage", "outcome", "by_user", "reason", "ruleset_version")
@@ -112,21 +112,44 @@ def _import_events(session):
             yield eid, table, rec
 
 
-def verify(engine) -> dict[str, Any]:
-    """The hash chain, then every decision, import and record that drives a decision against the trail.
+def verify(engine, expect_head: str | None = None) -> dict[str, Any]:
+    """The hash chain and its anchors, then every decision, import and record that drives a decision against the trail.
 
-    ``{ok, first_broken_id, message, head_id, head_hash, events, problems}``;
+    ``expect_head`` is a head hash kept elsewhere (``krt audit head``): it must
+    still be in the chain.  The keyed checkpoints are checked with the key of
+    :func:`tracker.db.anchor.load_key` when one is configured.
+
+    ``{ok, first_broken_id, message, head_id, head_hash, events, problems, checkpoints, anchored}``;
     ``message`` names the first problem, ``problems`` lists up to 20.
     """
+    from ..db import anchor
     from . import integrity
 
+    key = anchor.load_key()
+    if expect_head is not None:
+        expect_head = expect_head.strip().lower()
+        if len(expect_head) != 64 or any(c not in "0123456789abcdef" for c in expect_head):
+            raise InputError(f"--expect-head wants the 64 hex digits of a head hash (as 'krt audit head' prints), got {expect_head!r}")
     with UnitOfWork(engine, write=False) as uow:
         s = uow.session
         ok, broken, message = verify_chain(s)
         head_id, head_hash = chain_head(s)
         problems: list[tuple[int | None, str]] = [] if ok else [(broken, message)]
         parts = [message]
+        cp_message = "not checked (the chain is broken)"
+        if ok and expect_head is not None:
+            at = find_head(s, expect_head)
+            if at is None:
+                problems.append((None, f"the expected head {expect_head[:12]}... is no longer in the chain (now {head_id} event(s), "
+                                       f"head {head_hash[:12]}): events were cut off the end or the chain was rewritten"))
+            else:
+                parts.append(f"expected head found at event {at}" + (f" ({head_id - at} event(s) since)" if head_id > at else ""))
         if ok:
+            cp_ok, cp_broken, cp_message = verify_checkpoints(s, key)
+            if not cp_ok:
+                problems.append((cp_broken, cp_message))
+            else:
+                parts.append(cp_message)
             d_ok, d_broken, d_message = verify_decisions(s)
             if not d_ok:
                 problems.append((d_broken, d_message))
@@ -146,9 +169,28 @@ def verify(engine) -> dict[str, Any]:
         if len(problems) > 1:
             message += f" (and {len(problems) - 1} more problem(s))"
         return {"ok": False, "first_broken_id": broken, "message": message, "head_id": head_id, "head_hash": head_hash,
-                "events": head_id, "problems": [m for _, m in problems[:20]]}
+                "events": head_id, "problems": [m for _, m in problems[:20]], "checkpoints": cp_message, "anchored": False}
     return {"ok": True, "first_broken_id": None, "message": "; ".join(parts), "head_id": head_id, "head_hash": head_hash,
-            "events": head_id, "problems": []}
+            "events": head_id, "problems": [], "checkpoints": cp_message, "anchored": key is not None and head_id > 0}
+
+
+def head(engine) -> dict[str, Any]:
+    """The chain's head, to keep elsewhere: ``{head_hash, events, head_id, at, checkpoint, database}``.
+
+    ``checkpoint`` is the last keyed checkpoint event's id (``None`` without one).
+    """
+    from ..db import anchor
+    from ..db.session import mask_url
+
+    with UnitOfWork(engine, write=False) as uow:
+        s = uow.session
+        head_id, head_hash = chain_head(s)
+        at = s.execute(select(AuditEvent.at).where(AuditEvent.id == head_id)).scalar() if head_id else None
+        cp = s.execute(select(AuditEvent.id).where(AuditEvent.action == anchor.CHECKPOINT_ACTION,
+                                                  AuditEvent.entity_type == anchor.CHECKPOINT_ENTITY)
+                       .order_by(AuditEvent.id.desc()).limit(1)).scalar()
+    return {"head_hash": head_hash, "events": head_id, "head_id": head_id, "at": at, "checkpoint": cp,
+            "database": mask_url(str(engine.url))}
 
 
 def show(engine, compound: str | None = None, limit: int | None = None, newest_first: bool = False) -> pd.DataFrame:

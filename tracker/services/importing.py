@@ -645,10 +645,25 @@ def _update_compounds(session, df, stored, actor, reason, events) -> int:
 
 # ------------------------------------------------------------------ export
 def export_all(engine: Engine, out_dir: str | Path, xlsx: str | Path | None = None) -> dict[str, Any]:
-    """Write every table of the format to ``out_dir`` (CSV) and optionally one ``.xlsx`` workbook (see :mod:`.exporting`)."""
+    """Write every table of the format to ``out_dir`` (CSV) and optionally one ``.xlsx`` workbook (see :mod:`.exporting`).
+
+    Also writes ``audit_head.json``: the audit chain's head read just before
+    the export (``krt audit head``), so the export can be tied to the trail
+    later (``krt audit verify --expect-head``).
+    """
+    import json
+
+    from .auditlog import head
     from .exporting import export_tables
 
-    return export_tables(engine, out_dir, xlsx)
+    anchor = head(engine)
+    summary = export_tables(engine, out_dir, xlsx)
+    (Path(out_dir) / AUDIT_HEAD_FILE).write_text(json.dumps(anchor, indent=2) + "\n", encoding="utf-8")
+    summary["audit_head"] = anchor
+    return summary
+
+
+AUDIT_HEAD_FILE = "audit_head.json"
 
 
 __all__ = ["import_path", "export_all", "Progress", "PROGRESS_THRESHOLD"]
