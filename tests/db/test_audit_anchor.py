@@ -235,3 +235,13 @@ def test_verify_names_an_event_dated_back_in_the_chain(migrated_engine):
     _append_forged(migrated_engine, at="2020-01-01T00:00:00.000000+00:00")
     res = verify(migrated_engine)
     assert not res["ok"] and "a clock was set back" in res["message"]
+
+
+def test_an_export_records_the_head_it_was_taken_at(migrated_engine, sample_dir, tmp_path):
+    from tracker.services.importing import export_all, import_path
+
+    import_path(migrated_engine, sample_dir, actor="ana")
+    summary = export_all(migrated_engine, tmp_path / "out")
+    recorded = json.loads((tmp_path / "out" / "audit_head.json").read_text(encoding="utf-8"))
+    assert recorded["head_hash"] == head(migrated_engine)["head_hash"] == summary["audit_head"]["head_hash"]
+    assert verify(migrated_engine, expect_head=recorded["head_hash"])["ok"]

@@ -84,7 +84,8 @@ def test_the_pack_records_the_audit_chain_head_it_was_built_from(pack, shared_en
     text, _, _ = pack
     with UnitOfWork(shared_engine, write=False) as uow:
         head_id, head_hash = chain_head(uow.session)
-    assert f"event {head_id}, hash {head_hash[:16]}" in text
+    assert f"event {head_id}, hash <code class='audit-head'>{head_hash}</code>" in text  # the whole hash, for --expect-head
+    assert f"<meta name='krt-audit-head' content='{head_hash}' data-events='{head_id}'>" in text
 
 
 def test_a_large_selection_keeps_grades_but_leaves_out_per_compound_charts(shared_engine, demo_graded, monkeypatch):

@@ -299,10 +299,12 @@ def _assemble(engine: Engine, *, program: str | None, compounds: Iterable[str] |
     count_text = " · ".join(f"{theme.GRADES[k].badge}: {int(counts.get(k, 0))}" for k in ("high", "moderate", "low", "clear"))
     parts = [
         "<!DOCTYPE html><html lang='en'><head><meta charset='utf-8'>",
+        f"<meta name='krt-audit-head' content='{head_hash}' data-events='{head_id}'>",
         f"<title>{html.escape(title)}</title><style>{CSS}</style></head><body>",
         f"<h1>{html.escape(title)}</h1>",
         f"<p class='meta'>Built {now}{' by ' + html.escape(author) if author else ''} · {len(rows)} compound(s) · "
-        f"audit chain head: event {head_id}, hash {head_hash[:16]}…</p>",
+        f"audit chain head: event {head_id}, hash <code class='audit-head'>{head_hash}</code> "
+        "(check later with <code>krt audit verify --expect-head HASH</code>)</p>",
         "<div class='caution'><b>" + html.escape(theme.SAFETY_TITLE) + ".</b><ul>"
         + "".join(f"<li>{html.escape(p)}</li>" for p in theme.SAFETY_POINTS) + "</ul></div>",
         f"<h2>Summary</h2><p>{count_text}</p>",
