@@ -7,9 +7,12 @@
     ``pg_dump`` and to the export-based path.
 ``krt backup --export DIR [--force]``
     Any backend: the exchange format plus users, rule settings and a manifest.
-``krt restore FILE [--to URL] [--force]``
+``krt restore FILE [--to URL] [--force] [--by LEAD]``
     Copy a SQLite backup into a new SQLite database (default: the configured
-    one, which must then be empty unless ``--force``) and verify it.
+    one, which must then be empty unless ``--force``) and verify it.  A
+    backup that would roll the live audit trail back is refused unless a lead
+    forces it; the restored database then records a ``restore-rollback``
+    event naming the replaced head.
 ``krt restore --from-export DIR [--to URL] [--by USER]``
     Any backend: import an export-based backup into an empty database.
 
@@ -35,7 +38,8 @@ def register(sub: argparse._SubParsersAction) -> None:
     r.add_argument("file", nargs="?", metavar="FILE", help="SQLite backup file written by 'krt backup'")
     r.add_argument("--from-export", metavar="DIR", dest="from_export", help="restore an export-based backup (any backend)")
     r.add_argument("--to", metavar="URL", help="database to restore into (default: --database / $KRT_DATABASE_URL)")
-    r.add_argument("--force", action="store_true", help="replace a SQLite database that already holds data (stop the dashboard first)")
+    r.add_argument("--force", action="store_true", help="replace a SQLite database that already holds data (stop the dashboard first); "
+                   "going behind its audit head also needs the signed-in lead of that database, and is recorded")
     r.add_argument("--by", metavar="USER", default=None, help="who restores (recorded in the new, empty database's audit trail; default: the login name)")
     r.add_argument("--json", action="store_true", help="print the summary as JSON")
     r.set_defaults(func=_restore)
@@ -83,7 +87,7 @@ def _restore(args) -> int:
     url = args.to or database_url()
     if args.file:
         with database_errors("restore failed"):
-            res = restore_sqlite(args.file, url, force=args.force)
+            res = restore_sqlite(args.file, url, force=args.force, by=_signed_in_or_none(url, args.by))
         audit = res["audit"]
         if args.json:
             from .grade import print_json
@@ -92,6 +96,10 @@ def _restore(args) -> int:
         else:
             print(f"restored {args.file} -> {res['target']} ({sum(res['tables'].values()):,} rows, schema {res['revision']})")
             print(f"  audit verify: {'ok' if audit['ok'] else 'FAILED'}: {audit['message']}")
+            if res.get("rolled_back"):
+                rb = res["rolled_back"]
+                print(f"  rolled back: the replaced audit head (event {rb['replaced_head']['events']}, "
+                      f"{rb['replaced_head']['head_hash'][:12]}) is named by restore event {rb['event']}, forced by {rb['by']}")
             if not res["schema_current"]:
                 print("  the backup's schema is older than this version of the tracker: run 'krt db upgrade' on it")
             for p in res["problems"]:
@@ -117,3 +125,18 @@ def _restore(args) -> int:
         print("  the new audit trail starts with this restore; decisions, stage history, raw time courses and the old "
               "trail stay in the original database")
     return 0 if audit["ok"] else 1
+
+
+def _signed_in_or_none(url: str, by: str | None) -> str | None:
+    """The user signed in to the database at ``url`` (``krt login``), or None: only a roll-back needs a signed-in lead."""
+    from ..db.session import make_engine
+    from ..errors import PermissionDenied
+    from .signin import signed_in_user
+
+    engine = make_engine(url)
+    try:
+        return signed_in_user(engine, by)
+    except PermissionDenied:
+        return None
+    finally:
+        engine.dispose()

@@ -15,8 +15,13 @@ def register(sub: argparse._SubParsersAction) -> None:
     up = dbsub.add_parser("upgrade", help="migrate the schema to the newest revision (creates the tables)")
     up.add_argument("revision", nargs="?", default="head", help="target revision (default: head)")
     up.set_defaults(func=_upgrade)
-    down = dbsub.add_parser("downgrade", help="migrate the schema back to REV ('base' drops every table)")
+    down = dbsub.add_parser("downgrade", help="migrate the schema back to REV ('base' drops every table); "
+                            "a database with data needs a lead's --confirm-data-loss and is backed up first")
     down.add_argument("revision", metavar="REV")
+    down.add_argument("--confirm-data-loss", action="store_true", dest="confirm",
+                      help="a lead confirms downgrading a database that holds data (a backup is taken first)")
+    down.add_argument("--by", metavar="USER", help="must match the signed-in lead who confirms (krt login)")
+    down.add_argument("--backup", metavar="PATH", help="where the backup goes (default: beside the SQLite file / the data folder)")
     down.set_defaults(func=_downgrade)
     cur = dbsub.add_parser("current", help="print the schema revision of the database")
     cur.set_defaults(func=_current)
@@ -49,9 +54,18 @@ def _upgrade(args) -> int:
 
 def _downgrade(args) -> int:
     def go(engine):
-        before = migrate.current(engine)
-        after = migrate.downgrade(engine, args.revision)
-        print(f"schema downgraded {before or 'empty'} -> {after or 'empty'}")
+        from ..services.admin import downgrade
+        from ..errors import PermissionDenied
+        from .signin import signed_in_user
+
+        try:
+            by = signed_in_user(engine, args.by) if args.confirm else None
+        except PermissionDenied:
+            by = None  # the service refuses a database with data without a signed-in lead
+        res = downgrade(engine, args.revision, by=by, confirm=args.confirm, backup_to=args.backup)
+        if res["backup"]:
+            print(f"backup of the data -> {res['backup']} (confirmed by {res['actor']})")
+        print(f"schema downgraded {res['from'] or 'empty'} -> {res['to'] or 'empty'}")
         return 0
 
     return _run(args, go)

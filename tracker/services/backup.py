@@ -60,7 +60,7 @@ from ..db.models import Program, RuleConfig, TABLES_IN_ORDER, User, utcnow
 from ..db.session import make_engine, mask_url
 from ..db.uow import UnitOfWork
 from ..domain import ROLES
-from ..errors import InputError, KrtError
+from ..errors import InputError, KrtError, PermissionDenied
 
 __all__ = [
     "backup_sqlite",
@@ -244,10 +244,14 @@ def _sqlite_target_is_empty(path: Path) -> bool:
         eng.dispose()
 
 
-def restore_sqlite(backup_file: str | Path, target_url: str, *, force: bool = False) -> dict[str, Any]:
+def restore_sqlite(backup_file: str | Path, target_url: str, *, force: bool = False, by: str | None = None) -> dict[str, Any]:
     """Copy a SQLite backup into the SQLite database at ``target_url`` and verify it.
 
-    The target must be new or empty unless ``force``.  The backup is checked
+    The target must be new or empty unless ``force``.  A backup whose audit
+    chain does not hold the target's current head would roll history back:
+    that needs ``force`` **and** ``by`` an active lead of the target, and the
+    restored database then gets a ``restore-rollback`` event naming the
+    replaced head (:mod:`tracker.services.admin`).  The backup is checked
     first (integrity, against its manifest when present); the copy's audit
     chain is verified afterwards.  Returns a summary.
     """
@@ -272,6 +276,7 @@ def restore_sqlite(backup_file: str | Path, target_url: str, *, force: bool = Fa
             raise BackupError(f"{backup_file} does not match its manifest (SHA-256 differs): the file changed after the backup")
     if not force and not _sqlite_target_is_empty(target):
         raise BackupError(f"{target} already holds data; restore into a new file, or pass --force to replace it")
+    replaced, actor = _rollback_guard(backup_file, target, info, by)
     target.parent.mkdir(parents=True, exist_ok=True)
     source = sqlite3.connect(_readonly_uri(backup_file), uri=True)
     try:
@@ -283,22 +288,31 @@ def restore_sqlite(backup_file: str | Path, target_url: str, *, force: bool = Fa
     finally:
         source.close()
     engine = make_engine(URL.create("sqlite", database=str(target)).render_as_string())
+    rollback_event = None
     try:
         from .auditlog import verify
 
-        result = verify(engine)
+        if replaced is not None:
+            from .admin import record_rollback
+
+            rollback_event = record_rollback(engine, actor, str(backup_file), replaced,
+                                             (info["audit_head_id"], info["audit_head_hash"]))
+        result = verify(engine, expect_head=info["audit_head_hash"] if info["audit_head_id"] else None)
         with engine.connect() as conn:
             counts = _counts(conn)
             revision = _revision(conn)
     finally:
         engine.dispose()
     problems = []
+    expected_counts = dict(info["tables"])
+    if rollback_event is not None:  # the restore's own event (and its checkpoint) come on top of the backup's trail
+        expected_counts["audit_events"] = result["head_id"]
     if manifest is not None:
-        if manifest.get("audit_head_hash") != result["head_hash"] or manifest.get("audit_head_id") != result["head_id"]:
+        if manifest.get("audit_head_hash") != info["audit_head_hash"] or manifest.get("audit_head_id") != info["audit_head_id"]:
             problems.append("audit head differs from the manifest")
-        if manifest.get("tables") and manifest["tables"] != counts:
+        if manifest.get("tables") and {**manifest["tables"], "audit_events": expected_counts.get("audit_events")} != counts:
             problems.append("row counts differ from the manifest")
-    if counts != info["tables"]:
+    if counts != expected_counts:
         problems.append("row counts differ from the backup file")
     return {
         "target": str(target),
@@ -309,7 +323,43 @@ def restore_sqlite(backup_file: str | Path, target_url: str, *, force: bool = Fa
         "manifest": str(mpath) if manifest is not None else None,
         "problems": problems,
         "ok": result["ok"] and not problems,
+        "rolled_back": None if replaced is None else {"replaced_head": {"events": replaced[0], "head_hash": replaced[1]},
+                                                       "event": rollback_event["id"] if rollback_event else None, "by": actor},
     }
+
+
+def _rollback_guard(backup_file: Path, target: Path, info: dict[str, Any], by: str | None) -> tuple[tuple[int, str] | None, str | None]:
+    """``(replaced head, lead)`` when restoring would go behind the target's audit head; ``(None, None)`` otherwise.
+
+    Refuses unless ``by`` is an active lead of the target (``--force`` was checked already).
+    """
+    if not target.exists() or _sqlite_target_is_empty(target):
+        return None, None
+    from .admin import live_head, require_lead
+
+    eng = _plain_engine(target)
+    try:
+        live = live_head(eng)
+        if live is None or live[0] == 0:
+            return None, None
+        bk = _plain_engine(backup_file)
+        try:
+            from .admin import contains_head
+
+            if contains_head(bk, live[1]):
+                return None, None  # the backup holds the live head: nothing of the trail is lost
+        finally:
+            bk.dispose()
+        behind = (f"the backup's audit trail ends at event {info['audit_head_id']} and does not contain {target}'s current "
+                  f"head (event {live[0]}, {live[1][:12]}): restoring would roll history back")
+        try:
+            actor = require_lead(eng, by, "a restore that rolls the audit trail back")
+        except PermissionDenied as exc:
+            raise PermissionDenied(f"{behind}; only a lead may force that ({exc.one_line()}), and the restore then "
+                                   "records an event naming the replaced head") from None
+        return live, actor
+    finally:
+        eng.dispose()
 
 
 # ------------------------------------------------------------------ export-based
