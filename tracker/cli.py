@@ -105,6 +105,26 @@ def main(argv: list[str] | None = None) -> int:
         return 130
     except BrokenPipeError:
         return 0
+    except Exception as exc:  # last resort: a database or file error no command caught is still one line
+        message = _environment_error(exc)
+        if message is None:
+            raise
+        print(f"krt: error: {message}", file=sys.stderr)
+        return 2
+
+
+def _environment_error(exc: Exception) -> str | None:
+    """One line for a driver or operating-system error (read-only database, held lock, unwritable path); else None."""
+    from sqlalchemy.exc import DBAPIError
+
+    if isinstance(exc, DBAPIError):
+        from .db.session import describe_db_error
+
+        return " ".join(describe_db_error(exc).split())
+    if isinstance(exc, OSError):
+        where = f"{exc.filename}: " if exc.filename else ""
+        return " ".join(f"{where}{exc.strerror or exc}".split())
+    return None
 
 
 if __name__ == "__main__":  # pragma: no cover

@@ -35,6 +35,7 @@ from ..errors import KrtError
 
 APP_NAME = "kinetic-risk-tracker"
 ENV_URL = "KRT_DATABASE_URL"
+ENV_LOCK_TIMEOUT = "KRT_LOCK_TIMEOUT_S"
 SQLITE_BUSY_TIMEOUT_MS = 30_000
 WRITE_OPTION = "krt_write"
 
@@ -85,6 +86,19 @@ def _check_url(url: str):
     return parsed
 
 
+def lock_timeout_ms() -> int:
+    """How long a writer waits for a lock before giving up: ``$KRT_LOCK_TIMEOUT_S`` seconds, default 30.
+
+    SQLite's ``busy_timeout`` and PostgreSQL's ``lock_timeout`` (without it a
+    PostgreSQL writer would wait for a held row lock forever).
+    """
+    text = os.environ.get(ENV_LOCK_TIMEOUT, "").strip()
+    try:
+        return max(1, int(float(text) * 1000)) if text else SQLITE_BUSY_TIMEOUT_MS
+    except ValueError:
+        return SQLITE_BUSY_TIMEOUT_MS
+
+
 def make_engine(url: str | None = None, **kwargs) -> Engine:
     """An engine for ``url`` (default :func:`database_url`) with the connection set-up above."""
     url = url or database_url()
@@ -97,7 +111,15 @@ def make_engine(url: str | None = None, **kwargs) -> Engine:
         _install_sqlite_events(engine)
         return engine
     kwargs.setdefault("pool_pre_ping", True)
-    return create_engine(parsed, **kwargs)
+    engine = create_engine(parsed, **kwargs)
+
+    @event.listens_for(engine, "connect")
+    def _pg_lock_timeout(dbapi_connection, _record):
+        with dbapi_connection.cursor() as cur:
+            cur.execute(f"SET lock_timeout = {lock_timeout_ms()}")
+        dbapi_connection.commit()
+
+    return engine
 
 
 def open_engine(url: str | None = None) -> Engine:
@@ -119,7 +141,7 @@ def _install_sqlite_events(engine: Engine) -> None:
         dbapi_connection.isolation_level = None  # we emit BEGIN ourselves
         cur = dbapi_connection.cursor()
         cur.execute("PRAGMA foreign_keys=ON")
-        cur.execute(f"PRAGMA busy_timeout={SQLITE_BUSY_TIMEOUT_MS}")
+        cur.execute(f"PRAGMA busy_timeout={lock_timeout_ms()}")
         cur.execute("PRAGMA journal_mode=WAL")
         cur.close()
 
@@ -134,15 +156,32 @@ def is_sqlite(bind) -> bool:
     return bind.dialect.name == "sqlite"
 
 
+def describe_db_error(exc: BaseException) -> str:
+    """One line saying what a driver error means for the user (read-only, locked, missing table ...)."""
+    orig = getattr(exc, "orig", exc)
+    text = str(orig).strip()
+    first = text.splitlines()[0] if text else type(orig).__name__
+    low = first.lower()
+    code = getattr(orig, "sqlstate", None)
+    if "readonly database" in low or "read-only transaction" in low or code == "25006":
+        return f"the database is read-only here ({first}); nothing was written"
+    if "database is locked" in low or "database is busy" in low or code == "55P03":
+        return (f"the database stayed locked by another writer for longer than {lock_timeout_ms() / 1000:g} s ({first}); "
+                "nothing was written: try again later (${ENV_LOCK_TIMEOUT} sets the wait)")
+    if "no such table" in low or code == "42P01":
+        return f"a table of the tracker is missing ({first}): run 'krt db current', or restore from a backup if it was dropped"
+    if code == "42501" or "permission denied" in low:
+        return f"the database refused the write ({first}); nothing was written"
+    return first
+
+
 @contextlib.contextmanager
 def database_errors(what: str = "database error") -> Iterator[None]:
     """Turn a driver error escaping a command into one :class:`DatabaseError` line (no traceback)."""
     try:
         yield
     except DBAPIError as exc:
-        orig = str(getattr(exc, "orig", exc)).strip()
-        first = orig.splitlines()[0] if orig else type(exc).__name__
-        raise DatabaseError(f"{what}: {first}") from None
+        raise DatabaseError(f"{what}: {describe_db_error(exc)}") from None
 
 
 # ------------------------------------------------------------------ retries
@@ -187,6 +226,8 @@ __all__ = [
     "is_transient",
     "with_retry",
     "database_errors",
+    "describe_db_error",
+    "lock_timeout_ms",
     "DatabaseError",
     "WRITE_OPTION",
 ]

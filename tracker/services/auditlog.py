@@ -16,7 +16,7 @@ import json
 from typing import Any
 
 import pandas as pd
-from sqlalchemy import select
+from sqlalchemy import inspect, select
 
 from ..db import queries
 from ..db.audit import chain_head, find_head, in_ranges, verify_chain, verify_checkpoints
@@ -25,6 +25,10 @@ from ..db.uow import UnitOfWork
 from ..errors import InputError, NotFoundError
 
 __all__ = ["verify", "head", "verify_decisions", "decision_fields", "show", "events_as_records"]
+
+#: Tables verify reads (every revision since the first has them).
+VERIFIED_TABLES = ("audit_events", "decisions", "compounds", "stage_history", "programs", "users", "rule_configs", "potency",
+                   "kinetic_measurements", "pk_profiles", "time_courses")
 
 #: Decision columns copied into the gate's audit event; the JSON texts enter as SHA-256 digests.
 DECISION_FIELDS = ("compound_id", "from_stage", "to_stage", "outcome", "by_user", "reason", "ruleset_version")
@@ -132,6 +136,14 @@ def verify(engine, expect_head: str | None = None) -> dict[str, Any]:
             raise InputError(f"--expect-head wants the 64 hex digits of a head hash (as 'krt audit head' prints), got {expect_head!r}")
     with UnitOfWork(engine, write=False) as uow:
         s = uow.session
+        missing = [t for t in VERIFIED_TABLES if t not in set(inspect(s.connection()).get_table_names())]
+        if missing:
+            what = ("the audit_events table is missing" if "audit_events" in missing else
+                    f"table(s) {', '.join(missing)} are missing")
+            return {"ok": False, "first_broken_id": None, "head_id": 0, "head_hash": None, "events": 0, "anchored": False,
+                    "checkpoints": "not checked", "problems": [what],
+                    "message": f"{what} (dropped outside the application, or no schema: see 'krt db current'); "
+                               "the trail cannot be verified: restore the database from a backup"}
         ok, broken, message = verify_chain(s)
         head_id, head_hash = chain_head(s)
         problems: list[tuple[int | None, str]] = [] if ok else [(broken, message)]

@@ -200,9 +200,9 @@ def backup_sqlite(engine: Engine, dest: str | Path, *, force: bool = False) -> d
         raise BackupError("the backup file cannot be the database itself")
     if not src_path.is_file():
         raise BackupError(f"no database file at {src_path}")
-    dest.parent.mkdir(parents=True, exist_ok=True)
     tmp = dest.with_name(f".{dest.name}.{uuid.uuid4().hex[:8]}.tmp")
     try:
+        dest.parent.mkdir(parents=True, exist_ok=True)
         with engine.connect() as conn:
             source = conn.connection.driver_connection  # the sqlite3.Connection itself, no transaction open
             target = sqlite3.connect(tmp)
@@ -213,8 +213,14 @@ def backup_sqlite(engine: Engine, dest: str | Path, *, force: bool = False) -> d
                 target.close()
         info = _inspect_sqlite_copy(tmp)
         os.replace(tmp, dest)
+    except (OSError, sqlite3.Error) as exc:
+        reason = getattr(exc, "strerror", None) or str(exc)
+        raise BackupError(f"cannot write the backup to {dest}: {reason} (nothing was written there)") from None
     finally:
-        tmp.unlink(missing_ok=True)
+        try:
+            tmp.unlink(missing_ok=True)
+        except OSError:
+            pass
     manifest = {
         "format": FORMAT,
         "kind": "sqlite-file",
@@ -227,7 +233,10 @@ def backup_sqlite(engine: Engine, dest: str | Path, *, force: bool = False) -> d
         **info,
     }
     mpath = manifest_path(dest)
-    mpath.write_text(json.dumps(manifest, indent=2) + "\n", encoding="utf-8")
+    try:
+        mpath.write_text(json.dumps(manifest, indent=2) + "\n", encoding="utf-8")
+    except OSError as exc:
+        raise BackupError(f"the backup {dest} was written but its manifest could not be ({mpath}: {exc.strerror or exc})") from None
     return manifest | {"path": str(dest), "manifest": str(mpath)}
 
 
