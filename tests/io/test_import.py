@@ -199,20 +199,25 @@ def _summary_of(engine, table: str) -> dict:
 
 
 def _values_digest(engine, table, after):
-    """SHA-256 over one canonical-JSON line of stored values per row, in id order (the seal's documented form)."""
+    """The seal's documented form, recomputed here: SHA-256 over the rows in id order, each block of 1,000 rows
+
+    as the compact JSON list of their value lists (times in UTC, ISO text) and a newline."""
+    import datetime as dt
     import hashlib
     import json
 
-    assert after["rows_format"] == 2 and after["row_columns"][0] == "id"
-    h = hashlib.sha256()
-    with engine.connect() as conn:
-        from tracker.db.models import Base
+    from tracker.db.models import Base
 
-        t = Base.metadata.tables[table]
-        for row in conn.execute(t.select().order_by(t.c.id)):
-            values = [getattr(row, c) for c in after["row_columns"]]
-            values = [v.isoformat() if hasattr(v, "isoformat") else v for v in values]
-            h.update((json.dumps(values, sort_keys=True, separators=(",", ":"), ensure_ascii=False) + "\n").encode())
+    def iso(v):
+        return v.astimezone(dt.timezone.utc).isoformat() if isinstance(v, dt.datetime) else v.isoformat()
+
+    assert after["rows_format"] == 2 and after["row_columns"][0] == "id"
+    t = Base.metadata.tables[table]
+    with engine.connect() as conn:
+        rows = [[getattr(r, c) for c in after["row_columns"]] for r in conn.execute(t.select().order_by(t.c.id))]
+    h = hashlib.sha256()
+    for i in range(0, len(rows), 1000):
+        h.update((json.dumps(rows[i : i + 1000], separators=(",", ":"), ensure_ascii=False, default=iso) + "\n").encode())
     return h.hexdigest()
 
 
