@@ -24,6 +24,7 @@ from tracker.cli import main
 from tracker.db import migrate
 from tracker.db.models import AuditEvent, Base, Compound, RuleConfig, User
 from tracker.db.session import make_engine
+from tracker.errors import PermissionDenied
 from tracker.services.auditlog import verify
 from tracker.services.backup import (
     BackupError,
@@ -166,7 +167,8 @@ def test_backup_and_restore_refuse_to_overwrite_without_force(tmp_path, sample_d
         with pytest.raises(BackupError, match="already holds data"):
             restore_sqlite(tmp_path / "bk.sqlite", str(src.url))
         other = _sqlite_db(tmp_path / "other.sqlite")
-        import_path(other, sample_dir, actor="someone")
+        add_user(other, "olga", "lead")
+        import_path(other, sample_dir, actor="olga")
         before = _rows(other)
         other.dispose()
         with pytest.raises(BackupError, match="already holds data"):
@@ -174,10 +176,15 @@ def test_backup_and_restore_refuse_to_overwrite_without_force(tmp_path, sample_d
         other = make_engine(f"sqlite:///{tmp_path / 'other.sqlite'}")
         assert _rows(other) == before  # refused: unchanged
         other.dispose()
-        forced = restore_sqlite(tmp_path / "bk.sqlite", f"sqlite:///{tmp_path / 'other.sqlite'}", force=True)
-        assert forced["ok"]
+        # the backup does not hold other's audit head: replacing it rolls other's history back, which only its lead may force
+        with pytest.raises(PermissionDenied, match="roll history back"):
+            restore_sqlite(tmp_path / "bk.sqlite", f"sqlite:///{tmp_path / 'other.sqlite'}", force=True)
+        forced = restore_sqlite(tmp_path / "bk.sqlite", f"sqlite:///{tmp_path / 'other.sqlite'}", force=True, by="olga")
+        assert forced["ok"] and forced["rolled_back"]["by"] == "olga"
         other = make_engine(f"sqlite:///{tmp_path / 'other.sqlite'}")
-        assert _rows(other) == _rows(src)
+        mine, theirs = _rows(other), _rows(src)
+        assert {t: r for t, r in mine.items() if t != "audit_events"} == {t: r for t, r in theirs.items() if t != "audit_events"}
+        assert mine["audit_events"][: len(theirs["audit_events"])] == theirs["audit_events"]  # plus the restore-rollback event
         other.dispose()
     finally:
         src.dispose()
