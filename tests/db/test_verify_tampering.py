@@ -144,3 +144,19 @@ def test_the_intact_portfolio_reports_what_it_checked(portfolio):
     result = verify(portfolio)
     assert "4 import(s) match their rows" in result["message"] and "2 decision(s) match" in result["message"]
     assert result["events"] == result["head_id"] > 0 and result["problems"] == []
+
+
+def test_edits_of_saved_fits_are_named(migrated_engine):
+    from tracker.services.demo import load_demo
+
+    load_demo(migrated_engine)  # imports the demo portfolio and saves its fits (time course + kinetics row, each sealed)
+    assert verify(migrated_engine)["ok"]
+    with migrated_engine.begin() as conn:
+        km = conn.execute(text("SELECT min(id) FROM kinetic_measurements WHERE time_course_id IS NOT NULL")).scalar_one()
+        tc = conn.execute(text("SELECT min(id) FROM time_courses")).scalar_one()
+        conn.execute(text("UPDATE kinetic_measurements SET koff_per_s = koff_per_s / 10 WHERE id = :i"), {"i": km})
+        conn.execute(text("UPDATE time_courses SET data_json = '{}' WHERE id = :i"), {"i": tc})
+    result = verify(migrated_engine)
+    assert not result["ok"]
+    problems = " | ".join(result["problems"])
+    assert f"kinetic_measurements row {km} no longer matches" in problems and f"time_courses row {tc} no longer matches" in problems
