@@ -42,7 +42,7 @@ def _one_line(capsys, *words: str) -> str:
     return lines[0]
 
 
-GATE = ["gate", "AUR-001", "--to", "hit-to-lead", "--by", "lena", "--reason", "ok", *sum((["--waive", r] for r in rc.RULES), [])]
+GATE = ["gate", "AGR-001", "--to", "hit-to-lead", "--by", "lena", "--reason", "ok", *sum((["--waive", r] for r in rc.RULES), [])]
 WRITES = {
     "gate": GATE,
     "user": ["user", "add", "sam", "--role", "scientist", "--by", "lena"],
@@ -88,7 +88,7 @@ def test_a_gate_behind_a_long_lock_gives_up_in_one_line(loaded, capsys, monkeypa
         conn.execute("BEGIN IMMEDIATE")  # another process's writer holds the write lock
     else:
         conn = holder.connect()
-        conn.execute(text("SELECT id FROM compounds WHERE name = 'AUR-001' FOR UPDATE"))  # a gate's row lock, held
+        conn.execute(text("SELECT id FROM compounds WHERE name = 'AGR-001' FOR UPDATE"))  # a gate's row lock, held
     try:
         done = threading.Event()
         result: list[int] = []

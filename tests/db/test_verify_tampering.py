@@ -32,9 +32,9 @@ def portfolio(migrated_engine, sample_dir):
     add_user(migrated_engine, "sam", "scientist", by="lena")
     add_user(migrated_engine, "vic", "viewer", by="lena")
     import_path(migrated_engine, sample_dir, actor="lena")
-    request_gate(migrated_engine, "AUR-001", "hit-to-lead", by="lena", reason="kinetics in hand", waivers=list(rc.RULES))
+    request_gate(migrated_engine, "AGR-001", "hit-to-lead", by="lena", reason="kinetics in hand", waivers=list(rc.RULES))
     with pytest.raises(GateRefused):
-        request_gate(migrated_engine, "AUR-003", "clinical", by="vic", reason="push it through")
+        request_gate(migrated_engine, "AGR-003", "clinical", by="vic", reason="push it through")
     set_rule_override(migrated_engine, None, {"fold_high": 8.0}, by="lena", reason="tighter")
     result = verify(migrated_engine)
     assert result["ok"], result["message"]
@@ -59,19 +59,19 @@ def _fails(engine, *words: str) -> str:
 
 
 def test_a_stage_set_by_hand_on_a_gated_compound_is_named(portfolio):
-    _sql(portfolio, "UPDATE compounds SET stage = 'clinical' WHERE name = 'AUR-001'")
-    _fails(portfolio, "compound AUR-001", "stage is 'clinical'", "last approved decision")
+    _sql(portfolio, "UPDATE compounds SET stage = 'clinical' WHERE name = 'AGR-001'")
+    _fails(portfolio, "compound AGR-001", "stage is 'clinical'", "last approved decision")
 
 
 def test_a_stage_set_by_hand_on_a_never_gated_compound_breaks_its_import_seal(portfolio):
-    _sql(portfolio, "UPDATE compounds SET stage = 'clinical' WHERE name = 'BOR-001'")
-    _fails(portfolio, "compound BOR-001", "stage is 'clinical'", "creation row says 'hit-to-lead'")
+    _sql(portfolio, "UPDATE compounds SET stage = 'clinical' WHERE name = 'BKF-001'")
+    _fails(portfolio, "compound BKF-001", "stage is 'clinical'", "creation row says 'hit-to-lead'")
     assert any("compounds rows it imported no longer match" in p for p in verify(portfolio)["problems"])
 
 
 def test_a_stage_and_its_history_both_set_by_hand_still_break_the_import_seal(portfolio):
-    _sql(portfolio, "UPDATE compounds SET stage = 'clinical' WHERE name = 'BOR-001'",
-         "UPDATE stage_history SET to_stage = 'clinical' WHERE compound_id = (SELECT id FROM compounds WHERE name = 'BOR-001')")
+    _sql(portfolio, "UPDATE compounds SET stage = 'clinical' WHERE name = 'BKF-001'",
+         "UPDATE stage_history SET to_stage = 'clinical' WHERE compound_id = (SELECT id FROM compounds WHERE name = 'BKF-001')")
     _fails(portfolio, "compounds rows it imported no longer match")
 
 
@@ -87,8 +87,8 @@ def test_an_edited_potency_text_is_named_too(portfolio):
 
 def test_an_inserted_kinetics_row_is_named(portfolio):
     _sql(portfolio, "INSERT INTO kinetic_measurements (compound_id, method, koff_per_s, koff_given_as, content_hash, created_at) "
-                    "SELECT id, 'spr', 1e-5, 'koff', 'forged', created_at FROM compounds WHERE name = 'AUR-003'")
-    _fails(portfolio, "kinetic_measurements row", "AUR-003", "no audited import or fit")
+                    "SELECT id, 'spr', 1e-5, 'koff', 'forged', created_at FROM compounds WHERE name = 'AGR-003'")
+    _fails(portfolio, "kinetic_measurements row", "AGR-003", "no audited import or fit")
 
 
 def test_a_deleted_kinetics_row_is_named(portfolio):
@@ -100,7 +100,7 @@ def test_a_deleted_kinetics_row_is_named(portfolio):
     ("UPDATE stage_history SET to_stage = 'candidate' WHERE decision_id IS NOT NULL", ("stage_history row", "to_stage")),
     ("UPDATE stage_history SET by_user = 'vic' WHERE decision_id IS NOT NULL", ("stage_history row", "by_user")),
     ("UPDATE stage_history SET to_stage = 'candidate' WHERE decision_id IS NULL "
-     "AND compound_id = (SELECT id FROM compounds WHERE name = 'BOR-001')", ("stage_history", "BOR-001")),
+     "AND compound_id = (SELECT id FROM compounds WHERE name = 'BKF-001')", ("stage_history", "BKF-001")),
     ("DELETE FROM stage_history WHERE decision_id IS NOT NULL", ("has no stage_history row",)),
 ])
 def test_an_edited_stage_history_is_named(portfolio, statement, words):
@@ -136,8 +136,8 @@ def test_a_deleted_refused_decision_is_named(portfolio):
 
 
 def test_an_edited_program_threshold_is_named(portfolio):
-    _sql(portfolio, "UPDATE programs SET engagement_threshold = 0.1 WHERE name = 'Aurora'")
-    _fails(portfolio, "program Aurora", "engagement_threshold")
+    _sql(portfolio, "UPDATE programs SET engagement_threshold = 0.1 WHERE name = 'Ashgrove'")
+    _fails(portfolio, "program Ashgrove", "engagement_threshold")
 
 
 def test_the_intact_portfolio_reports_what_it_checked(portfolio):
