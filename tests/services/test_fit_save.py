@@ -13,7 +13,7 @@ import json
 
 import numpy as np
 import pytest
-from sqlalchemy import func, select
+from sqlalchemy import func, select, update
 
 from tracker.db.models import AuditEvent, KineticMeasurement, TimeCourse
 from tracker.db.uow import UnitOfWork
@@ -104,6 +104,10 @@ def test_supersede_keeps_the_old_value_on_record_audits_the_reason_and_regrades(
     assert old_id not in set(graded["id"]) and saved["kinetic_measurement_id"] in set(graded["id"])
     code, out, err = cli("audit", "verify")
     assert code == 0, err
+    with kestrel.begin() as conn:  # un-superseding by hand brings the old value back into the grade: verify names it
+        conn.execute(update(KineticMeasurement).where(KineticMeasurement.id == old_id).values(superseded_by_id=None))
+    code, out, err = cli("audit", "verify")
+    assert code == 1 and f"kinetic_measurements row {old_id}: superseded_by_id is None" in err, err
 
 
 def test_the_text_report_names_what_was_superseded(cli, tmp_path):
