@@ -104,7 +104,7 @@ def test_full_precision_values_round_trip_byte_identically(migrated_engine, seco
     assert f"{kon!r} /M/s" in line and f"{koff!r} /s" in line and f"{kd!r} M" in line  # not the 6-digit texts
     import_path(second_migrated_engine, tmp_path / "one", actor="ana")
     export_all(second_migrated_engine, tmp_path / "two")
-    names = sorted(p.name for p in (tmp_path / "one").iterdir())
+    names = sorted(p.name for p in (tmp_path / "one").iterdir() if p.name != "audit_head.json")  # the head differs per database
     assert filecmp.cmpfiles(tmp_path / "one", tmp_path / "two", names, shallow=False)[1:] == ([], [])
     got = queries.kinetics(second_migrated_engine)
     row = got[got["compound"] == "BKF-001"].iloc[0]
