@@ -7,7 +7,9 @@ for verify, one ``FAILED`` line) and write nothing.
 
 from __future__ import annotations
 
+import io
 import sqlite3
+import sys
 import threading
 
 import pytest
@@ -20,11 +22,15 @@ from tracker.services.backup import count_rows
 from tracker.services.importing import import_path
 from tracker.services.users import add_user
 
+from ..conftest import TEST_PASSWORD
+
 
 @pytest.fixture
-def loaded(migrated_engine, sample_dir):
-    add_user(migrated_engine, "lena", "lead")
+def loaded(migrated_engine, sample_dir, login, monkeypatch):
+    add_user(migrated_engine, "lena", "lead", password=TEST_PASSWORD)
     import_path(migrated_engine, sample_dir, actor="lena")
+    login(migrated_engine, "lena")  # the writes below act as the signed-in lead
+    monkeypatch.setattr(sys, "stdin", io.StringIO(TEST_PASSWORD + "\n"))  # --password-stdin: the gate's signature
     return migrated_engine
 
 
@@ -42,11 +48,11 @@ def _one_line(capsys, *words: str) -> str:
     return lines[0]
 
 
-GATE = ["gate", "AGR-001", "--to", "hit-to-lead", "--by", "lena", "--reason", "ok", *sum((["--waive", r] for r in rc.RULES), [])]
+GATE = ["gate", "AGR-001", "--to", "hit-to-lead", "--reason", "ok", "--password-stdin", *sum((["--waive", r] for r in rc.RULES), [])]
 WRITES = {
     "gate": GATE,
-    "user": ["user", "add", "sam", "--role", "scientist", "--by", "lena"],
-    "rules set": ["rules", "set", "fold_high=8", "--by", "lena", "--reason", "tighter"],
+    "user": ["user", "add", "sam", "--role", "scientist", "--password-stdin"],
+    "rules set": ["rules", "set", "fold_high=8", "--reason", "tighter"],
 }
 
 

@@ -15,11 +15,13 @@ from tracker.services.backup import backup_sqlite, count_rows, restore_sqlite
 from tracker.services.importing import import_path
 from tracker.services.users import add_user
 
+from ..conftest import TEST_PASSWORD
+
 
 @pytest.fixture
 def with_data(migrated_engine, sample_dir):
-    add_user(migrated_engine, "lena", "lead")
-    add_user(migrated_engine, "sam", "scientist", by="lena")
+    add_user(migrated_engine, "lena", "lead", password=TEST_PASSWORD)
+    add_user(migrated_engine, "sam", "scientist", by="lena", password=TEST_PASSWORD)
     import_path(migrated_engine, sample_dir, actor="lena")
     return migrated_engine
 
@@ -54,8 +56,9 @@ def test_a_scientist_cannot_confirm_a_downgrade(with_data, tmp_path):
     assert not (tmp_path / "bk").exists()
 
 
-def test_a_lead_confirmed_downgrade_takes_a_backup_first(with_data, tmp_path, capsys):
+def test_a_lead_confirmed_downgrade_takes_a_backup_first(with_data, tmp_path, capsys, login):
     before = count_rows(with_data)
+    login(with_data, "lena")
     target = tmp_path / ("bk.sqlite" if with_data.dialect.name == "sqlite" else "bk")
     assert main(["--database", _url(with_data), "db", "downgrade", "base", "--confirm-data-loss", "--by", "lena",
                  "--backup", str(target)]) == 0
@@ -80,18 +83,20 @@ def test_a_lead_confirmed_downgrade_takes_a_backup_first(with_data, tmp_path, ca
 def live_and_old_backup(tmp_path, sample_dir):
     live = make_engine(f"sqlite:///{tmp_path / 'live.sqlite'}")
     migrate.upgrade(live)
-    add_user(live, "lena", "lead")
-    add_user(live, "vic", "viewer", by="lena")
+    add_user(live, "lena", "lead", password=TEST_PASSWORD)
+    add_user(live, "vic", "viewer", by="lena", password=TEST_PASSWORD)
     import_path(live, sample_dir, actor="lena")
     old = tmp_path / "old.sqlite"
     backup_sqlite(live, old)
-    add_user(live, "otto", "lead", by="lena")  # history after the backup
+    add_user(live, "otto", "lead", by="lena", password=TEST_PASSWORD)  # history after the backup
     yield live, old
     live.dispose()
 
 
-def test_a_restore_behind_the_live_head_is_refused_unless_a_lead_forces_it(live_and_old_backup, capsys):
+def test_a_restore_behind_the_live_head_is_refused_unless_a_lead_forces_it(live_and_old_backup, capsys, login):
     live, old = live_and_old_backup
+    login(live, "vic")
+    capsys.readouterr()
     before = head(live)
     assert main(["--database", _url(live), "restore", str(old), "--force", "--by", "vic"]) == 2
     err = capsys.readouterr().err
@@ -99,8 +104,10 @@ def test_a_restore_behind_the_live_head_is_refused_unless_a_lead_forces_it(live_
     assert head(live) == before  # nothing replaced
 
 
-def test_a_forced_roll_back_records_the_replaced_head(live_and_old_backup, capsys):
+def test_a_forced_roll_back_records_the_replaced_head(live_and_old_backup, capsys, login):
     live, old = live_and_old_backup
+    login(live, "lena")
+    capsys.readouterr()
     replaced = head(live)
     assert main(["--database", _url(live), "restore", str(old), "--force", "--by", "lena"]) == 0
     assert "rolled back" in capsys.readouterr().out

@@ -25,16 +25,19 @@ from tracker.services.grading import set_rule_override
 from tracker.services.importing import import_path
 from tracker.services.users import add_user
 
+from ..conftest import TEST_PASSWORD
+
 
 @pytest.fixture
 def portfolio(migrated_engine, sample_dir):
-    add_user(migrated_engine, "lena", "lead")
-    add_user(migrated_engine, "sam", "scientist", by="lena")
-    add_user(migrated_engine, "vic", "viewer", by="lena")
+    add_user(migrated_engine, "lena", "lead", password=TEST_PASSWORD)
+    add_user(migrated_engine, "sam", "scientist", by="lena", password=TEST_PASSWORD)
+    add_user(migrated_engine, "vic", "viewer", by="lena", password=TEST_PASSWORD)
     import_path(migrated_engine, sample_dir, actor="lena")
-    request_gate(migrated_engine, "AGR-001", "hit-to-lead", by="lena", reason="kinetics in hand", waivers=list(rc.RULES))
+    request_gate(migrated_engine, "AGR-001", "hit-to-lead", by="lena", reason="kinetics in hand", waivers=list(rc.RULES),
+                 password=TEST_PASSWORD)
     with pytest.raises(GateRefused):
-        request_gate(migrated_engine, "AGR-003", "clinical", by="vic", reason="push it through")
+        request_gate(migrated_engine, "AGR-003", "clinical", by="vic", reason="push it through", password=TEST_PASSWORD)
     set_rule_override(migrated_engine, None, {"fold_high": 8.0}, by="lena", reason="tighter")
     result = verify(migrated_engine)
     assert result["ok"], result["message"]
@@ -131,7 +134,8 @@ def test_a_user_added_by_hand_is_named(portfolio):
 
 
 def test_a_deleted_refused_decision_is_named(portfolio):
-    _sql(portfolio, "DELETE FROM decisions WHERE outcome = 'refused'", drop_triggers=True)
+    _sql(portfolio, "DELETE FROM signatures WHERE decision_id IN (SELECT id FROM decisions WHERE outcome = 'refused')",
+         "DELETE FROM decisions WHERE outcome = 'refused'", drop_triggers=True)
     _fails(portfolio, "gate-refused", "missing from the decisions table")
 
 

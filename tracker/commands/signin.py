@@ -56,7 +56,8 @@ def database_key(engine) -> str:
     """Which database a session belongs to: SHA-256 of its URL (SQLite: of the resolved file path)."""
     url = engine.url
     if url.get_backend_name() == "sqlite" and url.database and url.database != ":memory:":
-        text = "sqlite:" + str(Path(url.database).expanduser().resolve())
+        db = url.database[5:].split("?", 1)[0] if url.database.startswith("file:") else url.database  # a URI names the same file
+        text = "sqlite:" + str(Path(db).expanduser().resolve())
     else:
         text = url.set(password=None).render_as_string(hide_password=False)
     return hashlib.sha256(text.encode("utf-8")).hexdigest()
