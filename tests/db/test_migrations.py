@@ -92,3 +92,22 @@ def test_sqlite_foreign_keys_are_back_on_after_a_migration(tmp_path):
             assert conn.exec_driver_sql("PRAGMA foreign_keys").scalar() == 1
     finally:
         eng.dispose()
+
+
+def test_the_quick_head_and_stamp_readers_agree_with_alembic(migrated_engine):
+    # the start-up path reads the scripts and the stamp without Alembic; Alembic itself is the reference
+    from tracker.db import migrate
+
+    assert migrate.scripted_head() == migrate.head()
+    assert migrate.stamped(migrated_engine) == migrate.current(migrated_engine) == migrate.head()
+
+
+def test_the_quick_stamp_reader_sees_an_empty_database(tmp_path):
+    from tracker.db import migrate
+    from tracker.db.session import make_engine
+
+    engine = make_engine(f"sqlite:///{tmp_path / 'empty.sqlite'}")
+    try:
+        assert migrate.stamped(engine) is None
+    finally:
+        engine.dispose()
