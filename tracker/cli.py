@@ -33,6 +33,7 @@ COMMANDS: dict[str, tuple[str, str]] = {
     "login": ("signin", "sign in to this database (a short-lived session in your private config folder)"),
     "logout": ("signin", "end your session on this database"),
     "gate": ("gate", "move a compound to another stage, gated on its grade (leads only; recorded)"),
+    "action": ("action", "open, list and close actions on findings (owner, due date, status)"),
     "audit": ("audit", "verify or show the tamper-evident audit trail"),
     "backup": ("backup", "back up the database (SQLite online copy, or an export-based backup with --export)"),
     "restore": ("backup", "restore a backup into a new database and verify its audit trail"),

@@ -60,6 +60,12 @@ OUTCOMES: tuple[str, ...] = ("approved", "refused")
 #: ``co-signed`` a waiver (two-person rule).
 SIGNATURE_MEANINGS: tuple[str, ...] = ("approved", "refused", "waived", "co-signed")
 
+#: Status of an action taken on a finding (``open`` until done or dropped).
+ACTION_STATUSES: tuple[str, ...] = ("open", "done", "dropped")
+
+#: Grades of the grading layer, worst first (``clear`` = no finding).
+GRADE_VALUES: tuple[str, ...] = ("high", "moderate", "low", "clear")
+
 
 def stage_index(stage: str) -> int:
     """Position of ``stage`` in :data:`STAGES` (raises ``ValueError`` for an unknown stage)."""

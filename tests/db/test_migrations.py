@@ -14,7 +14,7 @@ from tracker.db.models import APPEND_ONLY_TABLES, Base
 
 EXPECTED_TABLES = {
     "programs", "compounds", "stage_history", "potency", "kinetic_measurements", "time_courses",
-    "pk_profiles", "users", "rule_configs", "decisions", "audit_events", "login_sessions", "signatures",
+    "pk_profiles", "users", "rule_configs", "decisions", "audit_events", "login_sessions", "signatures", "actions", "grade_snapshots",
 }
 
 

@@ -39,7 +39,7 @@ from sqlalchemy import (
 from sqlalchemy.orm import DeclarativeBase, Mapped, mapped_column
 from sqlalchemy.types import TypeDecorator
 
-from ..domain import FORMATS, METHODS, OUTCOMES, READOUTS, ROLES, ROUTES, SIGNATURE_MEANINGS, STAGES
+from ..domain import ACTION_STATUSES, FORMATS, GRADE_VALUES, METHODS, OUTCOMES, READOUTS, ROLES, ROUTES, SIGNATURE_MEANINGS, STAGES
 
 NAMING_CONVENTION = {
     "ix": "ix_%(column_0_label)s",
@@ -375,6 +375,39 @@ class AuditEvent(Base):
     hash: Mapped[str] = mapped_column(String(64), unique=True)
 
 
+class Action(Base):
+    """What a lead asked for on a finding: an owner, a due date, a status and a note, linked to compound and rule."""
+
+    __tablename__ = "actions"
+    __table_args__ = (CheckConstraint(_in("status", ACTION_STATUSES), name="status_valid"),)
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    compound_id: Mapped[int] = mapped_column(ForeignKey("compounds.id"), index=True)
+    rule: Mapped[str] = mapped_column(String(64))
+    prompt: Mapped[str | None] = mapped_column(Text)  # the finding's decision prompt when the action was opened
+    owner: Mapped[str] = mapped_column(String(100))
+    due: Mapped[dt.date] = mapped_column(Date)
+    status: Mapped[str] = mapped_column(String(16), default="open")
+    note: Mapped[str | None] = mapped_column(Text)
+    created_by: Mapped[str] = mapped_column(String(100))
+    created_at: Mapped[dt.datetime] = mapped_column(UTCDateTime, default=utcnow)
+    closed_by: Mapped[str | None] = mapped_column(String(100))
+    closed_at: Mapped[dt.datetime | None] = mapped_column(UTCDateTime)
+
+
+class GradeSnapshot(Base):
+    """A compound's grade and findings, written by the grading service whenever they change (grade history)."""
+
+    __tablename__ = "grade_snapshots"
+    __table_args__ = (CheckConstraint(_in("grade", GRADE_VALUES), name="grade_valid"),)
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    compound_id: Mapped[int] = mapped_column(ForeignKey("compounds.id"), index=True)
+    grade: Mapped[str] = mapped_column(String(16))
+    findings_json: Mapped[str] = mapped_column(Text)  # [[rule, severity], ...] sorted
+    at: Mapped[dt.datetime] = mapped_column(UTCDateTime, default=utcnow, index=True)
+
+
 #: Every table, in dependency order (parents first).
 TABLES_IN_ORDER: tuple[str, ...] = tuple(t.name for t in Base.metadata.sorted_tables)
 
@@ -398,5 +431,7 @@ __all__ = [
     "KineticMeasurement",
     "PKProfile",
     "AuditEvent",
+    "Action",
+    "GradeSnapshot",
     "STAGES",
 ]

@@ -92,19 +92,21 @@ def fit_entry(entry: dict[str, str], folder: Path):
 def load_demo(engine: Engine) -> dict[str, Any]:
     """Seed ``engine`` with the demo scenario; returns a summary."""
     from .fits import save_fit
+    from .history import deferred
     from .importing import import_path
 
     migrate.upgrade(engine)
     _ensure_users(engine)
     folder = demo_dir()
     # only adds: work done on the demo since (gates, imports, actions) survives a re-load
-    summary = import_path(engine, folder, actor=IMPORTER, progress=False, keep_existing=True)
-    saved = 0
-    tc_folder = folder / "timecourses"
-    for entry in manifest(folder):
-        result, df, opts = fit_entry(entry, tc_folder)
-        out = save_fit(entry["compound"], result, df, entry["file"], engine=engine, actor=IMPORTER,
-                       units=df.attrs.get("units", {}),
-                       options={k: entry[k] for k in ("tracer_kon", "tracer_koff", "tracer_conc") if entry.get(k)})
-        saved += bool(out["created"])
+    with deferred(engine, "demo load", IMPORTER):  # one grading refresh for the import and every fit
+        summary = import_path(engine, folder, actor=IMPORTER, progress=False, keep_existing=True)
+        saved = 0
+        tc_folder = folder / "timecourses"
+        for entry in manifest(folder):
+            result, df, opts = fit_entry(entry, tc_folder)
+            out = save_fit(entry["compound"], result, df, entry["file"], engine=engine, actor=IMPORTER,
+                           units=df.attrs.get("units", {}),
+                           options={k: entry[k] for k in ("tracer_kon", "tracer_koff", "tracer_conc") if entry.get(k)})
+            saved += bool(out["created"])
     return {"import": summary, "fits_saved": saved, "users": [u for u, _ in DEMO_USERS], "demo_password": DEMO_PASSWORD}

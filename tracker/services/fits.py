@@ -336,4 +336,9 @@ def save_fit(
                     "stored": stored, "superseded": [{"id": c["id"], "residence_time_s": c["residence_time_s"]}
                                                      for c in conflicts]}
 
-    return with_retry(work)
+    out = with_retry(work)
+    if out["created"]:  # grade history and actions follow the new measurement
+        from .history import refresh
+
+        refresh(engine, f"fit saved for {compound}", actor)
+    return out

@@ -307,6 +307,10 @@ def request_gate(
         }
 
     result = run_write(target, run)
+    if result["outcome"] == "approved" and not isinstance(target, UnitOfWork):
+        from .history import refresh
+
+        refresh(target, f"gate decision {result['decision_id']} ({result['from_stage']} -> {result['to_stage']})", by)
     if result["outcome"] == "refused":
         arrow = f"{result['from_stage']} -> {result['to_stage']}"
         raise GateRefused(f"gate refused for {compound} ({arrow}): {'; '.join(result['reasons'])} "

@@ -283,4 +283,9 @@ def set_rule_override(
                      {"program": program, "version": next_version, "settings": after, "ruleset": rc.RULESET_VERSION}, reason)
         return rule_settings(session, program)
 
-    return run_write(target, run)
+    out = run_write(target, run)
+    if not isinstance(target, UnitOfWork):
+        from .history import refresh
+
+        refresh(target, f"rule settings change ({program or 'every program'})", by)
+    return out

@@ -160,6 +160,10 @@ def import_path(
     summary["warnings"] = [w.one_line() for w in validated.warnings] + summary.pop("_stream_warnings", [])
     summary["path"] = str(path)
     prog.say("import committed")
+    if not isinstance(target, UnitOfWork):  # grade history and actions follow the new data (with a UnitOfWork the caller does it)
+        from .history import refresh
+
+        summary["follow_up"] = refresh(target, f"import of {', '.join(summary.get('files', [])) or path.name}", actor)
     return summary
 
 
