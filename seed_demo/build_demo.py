@@ -194,8 +194,12 @@ def main() -> None:
     write_csv(out / "programs.csv", ["program", "target", "intended_profile", "engagement_threshold", "onset_max",
                                      "duration_min", "offset_max", "dosing_interval", "target_half_life"], sc.PROGRAMS)
     comps, pot, kin, pk, manifest = [], [], [], [], []
+    seen: dict[str, int] = {}
     for c in compounds():
-        comps.append(dict(compound=c["name"], program=c["program"], series=c["series"], stage=c["stage"], smiles=""))
+        k = seen[c["series"]] = seen.get(c["series"], -1) + 1
+        core = sc.SERIES_CORES.get(c["series"])
+        smiles = core.replace("{R}", sc.R_GROUPS[k % len(sc.R_GROUPS)]) if core else ""
+        comps.append(dict(compound=c["name"], program=c["program"], series=c["series"], stage=c["stage"], smiles=smiles))
         pot += potency_rows(c)
         if c["kin"]:
             kind, method = c["kin"].split(":")

@@ -123,3 +123,15 @@ VALUE_ERRORS = {("HF-1017", "HF bind 1h"): 1e-3}
 MAX_RESPONSE = {"QM-2003": 0.45, "QM-2004": 0.96, "HF-1014": 0.97}
 
 USERS = [("demo-lead", "lead"), ("demo-scientist", "scientist"), ("demo-viewer", "viewer")]
+
+# Invented structures: one generic core per series with a substituent that varies along the series
+# ({R} on an aromatic ring).  Plain fragments chosen for the drawings, not any known compound.
+SERIES_CORES = {
+    "HF-amide": "O=C(Nc1ccc({R})cc1)c1ccncc1",
+    "HF-urea": "O=C(Nc1ccc({R})cc1)NC1CCOCC1",
+    "QM-biaryl": "NC(=O)c1cccc(-c2ccc({R})cn2)c1",
+    "QM-spiro": "O=C1NCC2(CCN(Cc3ccc({R})cc3)CC2)C1",
+    "TM-lactam": "O=C1CCC(N1)C(=O)Nc1ccc({R})cc1",
+    "TM-nitrile": "N#CC1CCN(C(=O)c2ccc({R})cc2)C1",
+}
+R_GROUPS = ("F", "Cl", "OC", "C", "C(F)(F)F", "C#N", "OC(F)(F)F", "N(C)C")

@@ -34,6 +34,7 @@ COMMANDS: dict[str, tuple[str, str]] = {
     "logout": ("signin", "end your session on this database"),
     "gate": ("gate", "move a compound to another stage, gated on its grade (leads only; recorded)"),
     "action": ("action", "open, list and close actions on findings (owner, due date, status)"),
+    "changes": ("changes", "what changed since a date or a review pack (grades, findings, data, gates, actions)"),
     "audit": ("audit", "verify or show the tamper-evident audit trail"),
     "backup": ("backup", "back up the database (SQLite online copy, or an export-based backup with --export)"),
     "restore": ("backup", "restore a backup into a new database and verify its audit trail"),

@@ -56,6 +56,8 @@ BAD_CSV = {
     "NaN value": ({"potency.csv": POT_HEAD + POT_OK + "AGR-002,a,IC50,NaN nM,30 min,binding\n"}, "potency.csv:3: value: 'NaN nM' is not a finite number"),
     "kon faster than diffusion": ({"kinetics.csv": KIN_HEAD + KIN_OK + "AGR-001,spr,3e10 /M/s,1e-3 /s,,\n"}, "kinetics.csv:3: kon: kon 3e10 /M/s exceeds the diffusion limit"),
     "unknown stage": ({"compounds.csv": CPD_HEAD + CPD_OK + "NEW-002,Ashgrove,,phase-7,\n"}, "compounds.csv:3: stage: unknown stage 'phase-7'"),
+    "unreadable SMILES": ({"compounds.csv": CPD_HEAD + CPD_OK + "NEW-002,Ashgrove,,hit,C1CC\n"}, "compounds.csv:3: smiles: RDKit cannot read SMILES 'C1CC'"),
+    "SMILES with a bad valence": ({"compounds.csv": CPD_HEAD + CPD_OK + "NEW-002,Ashgrove,,hit,C(C)(C)(C)(C)C\n"}, "compounds.csv:3: smiles: RDKit cannot read SMILES"),
     "unknown method": ({"kinetics.csv": KIN_HEAD + KIN_OK + "AGR-001,guesswork,1e6 /M/s,1e-3 /s,,\n"}, "kinetics.csv:3: method: unknown method 'guesswork'"),
     "koff and residence time both": ({"kinetics.csv": KIN_HEAD + KIN_OK + "AGR-001,spr,1e6 /M/s,1e-3 /s,2 h,\n"}, "kinetics.csv:3: residence_time: give koff or residence_time, not both"),
     "neither koff nor residence time": ({"kinetics.csv": KIN_HEAD + KIN_OK + "AGR-001,spr,1e6 /M/s,,,\n"}, "kinetics.csv:3: koff: give koff or residence_time"),

@@ -220,6 +220,8 @@ def _validate_rows(df: pd.DataFrame, spec: TableSpec, occurrences: Occurrences |
 
     if spec.name == "kinetics":
         _kinetics_rules(df, flag, warnings, labels, lines)
+    if spec.name == "compounds" and "smiles" in df.columns:
+        _smiles_rules(df, flag)
     if spec.name == "pk":
         oral_no_tmax = ((df["route"] == "oral") & df["tmax"].isna()).to_numpy(dtype=bool)
         flag(np.flatnonzero(oral_no_tmax), "tmax", "tmax is required for oral PK")
@@ -238,6 +240,21 @@ def _validate_rows(df: pd.DataFrame, spec: TableSpec, occurrences: Occurrences |
         df["content_hash"] = content_hashes(df, spec, occurrences)
     df["_bad"] = bad
     return df, errors, warnings
+
+
+def _smiles_rules(df: pd.DataFrame, flag) -> None:
+    """Refuse SMILES RDKit cannot read (checked once per distinct text)."""
+    cells = df["smiles"].to_numpy(dtype=object)
+    codes, uniques = pd.factorize(cells)
+    if not len(uniques):
+        return
+    from .structures import smiles_problem
+
+    problems = [smiles_problem(v) if isinstance(v, str) else None for v in uniques.tolist()]
+    if not any(problems):
+        return
+    wrong = (codes >= 0) & np.array([p is not None for p in problems] + [False], dtype=bool)[codes]
+    flag(np.flatnonzero(wrong), "smiles", lambda pos: problems[codes[pos]])
 
 
 def _kinetics_rules(df: pd.DataFrame, flag, warnings, labels, lines) -> None:

@@ -160,6 +160,7 @@ def _summary_select(flt: SummaryFilter):
             Program.name.label("program"),
             Compound.series,
             Compound.stage,
+            Compound.smiles,
             best.c.best_potency_M, best.c.best_readout, best.c.best_assay, best.c.best_incubation_s, best.c.best_format,
             best.c.best_tracer_conc_M, best.c.best_tracer_kd_M, best.c.best_tracer_rt_s,
             func.coalesce(best.c.n_potency, 0).label("n_potency"),

@@ -41,6 +41,7 @@ PAGES: tuple[PageSpec, ...] = (
     PageSpec("compound.py", "Compound evidence", "compound", ":material/biotech:", "Portfolio"),
     PageSpec("kinetic_map.py", "Kinetic map", "kinetic-map", ":material/scatter_plot:", "Portfolio"),
     PageSpec("queue.py", "Measure next", "measure-next", ":material/format_list_numbered:", "Portfolio"),
+    PageSpec("changes.py", "What changed", "what-changed", ":material/update:", "Portfolio"),
     PageSpec("gate.py", "Stage gate", "stage-gate", ":material/how_to_reg:", "Decide"),
     PageSpec("what_if.py", "What-if", "what-if", ":material/tune:", "Decide"),
     PageSpec("review_pack.py", "Review pack", "review-pack", ":material/description:", "Decide"),

@@ -38,6 +38,7 @@ from . import charts, data, evidence, theme
 from .widgets import rule_title
 
 MAX_CHART_COMPOUNDS = 60  # beyond this, the pack lists grades and findings without per-compound charts
+from ..services.history import PACK_META  # name of the <meta> that stamps a pack with its creation time and audit head
 
 
 def _svg(spec_json: str) -> str:
@@ -136,6 +137,7 @@ th{background:#F4F2EE}
 .prompt{font-weight:bold} .fcaution{color:#7A4B0E;font-size:13px}
 .chart{max-width:100%;display:block;margin:8px 0}
 .compound{page-break-inside:avoid}
+.structure svg{width:260px;height:180px;display:block;margin:4px 0}
 """
 
 
@@ -175,17 +177,20 @@ def _potency_html(table: pd.DataFrame) -> str:
     if table.empty:
         return "<p>No potency values on record.</p>"
 
+    from .. import fmt
+
     def n(v):
-        return "–" if v is None or v != v else f"{v:.3g}"
+        return fmt.conc(None if v is None else v * 1e-9, missing="–")
 
     rows = "".join(
-        f"<tr><td>{_e(r.assay)}</td><td>{_e(r.readout)}</td><td>{n(r.value_nM)}</td><td>{n(r.incubation_h)}</td>"
-        f"<td>{n(r.predicted_nM)}</td><td>{n(r.equilibrium_nM)}</td><td>{'–' if r.fold != r.fold else fmt_fold(r.fold)}</td>"
+        f"<tr><td>{_e(r.assay)}</td><td>{_e(r.readout)}</td><td>{n(r.value_nM)}</td>"
+        f"<td>{fmt.duration(None if r.incubation_h is None else r.incubation_h * 3600.0, missing='–')}</td>"
+        f"<td>{n(r.predicted_nM)}</td><td>{n(r.equilibrium_nM)}</td><td>{fmt.fold(r.fold, missing='–')}</td>"
         f"<td>{_e(r.fold_ci)}</td></tr>"
         for r in table.itertuples(index=False)
     )
-    return ("<table><tr><th>Assay</th><th>Readout</th><th>Measured (nM)</th><th>Incubation (h)</th>"
-            "<th>Predicted apparent (nM)</th><th>Projected true (nM)</th><th>Fold shift</th><th>Fold 95% interval</th></tr>"
+    return ("<table><tr><th>Assay</th><th>Readout</th><th>Measured</th><th>Incubation</th>"
+            "<th>Predicted apparent</th><th>Projected true</th><th>Fold shift</th><th>Fold 95% interval</th></tr>"
             + rows + "</table>")
 
 
@@ -194,6 +199,26 @@ def _brief_section(row: Any, graded: dict[str, Any]) -> str:
     return (f'<div class="compound"><h3 id="{html.escape(row.compound)}">{_e(row.compound)} {_badge(graded.get("grade"))}</h3>'
             f'<p class="meta">{_e(row.program)} · series {_e(row.series)} · stage {_e(row.stage)}</p>'
             + _findings_html(graded.get("findings") or []) + "</div>")
+
+
+def _since_last_pack(engine: Engine) -> str:
+    """What changed since the last recorded pack (tracker.services.history), or a note that this is the first."""
+    from ..services.history import changes, changes_markdown_lines, last_pack_time
+
+    since = last_pack_time(engine)
+    if since is None:
+        return "<h2>Since the last pack</h2><p class='meta'>No earlier pack is recorded for this database: this is the first.</p>"
+    lines = changes_markdown_lines(changes(engine, since))
+    body = "".join(f"<li>{_e(line)}</li>" for line in lines) if lines else "<li>Nothing changed.</li>"
+    return f"<h2>Since the last pack</h2><p class='meta'>Since {since:%Y-%m-%d %H:%M} UTC</p><ul>{body}</ul>"
+
+
+def _structure_html(smiles: object) -> str:
+    """The RDKit drawing (tracker.io.structures) inline; it holds no user text, so it is embedded as it is."""
+    from ..io.structures import draw_svg
+
+    svg = draw_svg(smiles if isinstance(smiles, str) else None)
+    return f'<div class="structure">{svg}</div>' if svg else ""
 
 
 def _compound_section(engine: Engine, name: str, graded: dict[str, Any], with_charts: bool, result) -> str:
@@ -206,6 +231,7 @@ def _compound_section(engine: Engine, name: str, graded: dict[str, Any], with_ch
              + (f" · residence time {_e(fmt_time(ev.rt_s))}" if ev.rt_s else "")
              + (f" · worst reading {_e(ev.summary.get('worst_reading'))} ({_e(fmt_fold(ev.summary.get('worst_fold_shift')))})"
                 if isinstance(ev.summary.get("worst_reading"), str) else "") + "</p>",
+             _structure_html(comp.get("smiles")),
              _findings_html(graded.get("findings") or [])]
     table = evidence.potency_table(ev)
     parts.append(_potency_html(table))
@@ -297,9 +323,15 @@ def _assemble(engine: Engine, *, program: str | None, compounds: Iterable[str] |
     title = f"Kinetic-risk review pack: {scope}"
     counts = rows["grade_key"].value_counts()
     count_text = " · ".join(f"{theme.GRADES[k].badge}: {int(counts.get(k, 0))}" for k in ("high", "moderate", "low", "clear"))
+    import json
+
+    stamp = {"created_at": dt.datetime.now(dt.timezone.utc).isoformat(), "audit_head_id": int(head_id), "audit_head_hash": head_hash,
+             "program": program}
     parts = [
         "<!DOCTYPE html><html lang='en'><head><meta charset='utf-8'>",
         f"<meta name='krt-audit-head' content='{head_hash}' data-events='{head_id}'>",
+        # machine-readable stamp: `krt changes --since PACK` and the next pack's "since the last pack" read it
+        f"<meta name='{PACK_META}' content='{html.escape(json.dumps(stamp, sort_keys=True), quote=True)}'>",
         f"<title>{html.escape(title)}</title><style>{CSS}</style></head><body>",
         f"<h1>{html.escape(title)}</h1>",
         f"<p class='meta'>Built {now}{' by ' + html.escape(author) if author else ''} · {len(rows)} compound(s) · "
@@ -312,6 +344,7 @@ def _assemble(engine: Engine, *, program: str | None, compounds: Iterable[str] |
     if with_charts and not rows.empty:
         parts.append(_img(charts.grade_counts_chart(charts.grade_counts_frame(rows)), "grade counts by stage and program"))
     parts.append(_summary_table(rows))
+    parts.append(_since_last_pack(engine))
     parts.append("<h2>Compounds</h2>")
     charted = with_charts and len(rows) <= MAX_CHART_COMPOUNDS
     if with_charts and not charted:

@@ -88,6 +88,37 @@ def findings_list(findings: list[dict[str, Any]], empty: str = "No findings: not
         finding_card(f)
 
 
+def structure_html(smiles: object, width: int = 260, height: int = 180) -> str | None:
+    """The compound's structure drawn by RDKit (tracker.io.structures), wrapped for the page; None without SMILES.
+
+    The SVG holds only the drawing (no user text), so it is embedded as it is.
+    """
+    from ..io.structures import draw_svg
+
+    svg = draw_svg(smiles if isinstance(smiles, str) else None, width, height)
+    if svg is None:
+        return None
+    return f'<div class="krt-structure" role="img" aria-label="structure drawing">{svg}</div>'
+
+
+def structure_thumbnail(smiles: object) -> str | None:
+    """A small drawing as a ``data:image/svg+xml`` URL for table image columns; None without SMILES."""
+    import base64
+
+    from ..io.structures import draw_svg
+
+    svg = draw_svg(smiles if isinstance(smiles, str) else None, 120, 80)
+    return None if svg is None else "data:image/svg+xml;base64," + base64.b64encode(svg.encode("utf-8")).decode("ascii")
+
+
+def structure(smiles: object) -> None:
+    html_ = structure_html(smiles)
+    if html_ is None:
+        st.caption("No structure on record (give a SMILES in compounds.csv).")
+    else:
+        st.markdown(html_, unsafe_allow_html=True)
+
+
 def conc(v: Any) -> str:
     """Molar value as readable text ('3.2 nM'); '–' when missing."""
     f = _num(v)
@@ -116,4 +147,4 @@ def one_line(exc: BaseException) -> str:
     return " ".join(str(exc).split())
 
 
-__all__ = ["badge", "badge_html", "safety_box", "finding_card", "findings_list", "rule_title", "conc", "dur", "fold", "one_line", "md"]
+__all__ = ["structure", "structure_html", "structure_thumbnail", "badge", "badge_html", "safety_box", "finding_card", "findings_list", "rule_title", "conc", "dur", "fold", "one_line", "md"]

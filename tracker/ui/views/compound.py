@@ -7,7 +7,7 @@ import streamlit as st
 
 from tracker import fmt
 from tracker.errors import KrtError
-from tracker.ui import data, evidence, widgets
+from tracker.ui import actions, data, evidence, widgets
 from tracker.ui.main import COMPOUND_KEY, context, page
 
 POTENCY_COLUMNS = {
@@ -121,6 +121,7 @@ def render() -> None:
         st.subheader(widgets.md(name))
         st.caption(f"{widgets.md(comp['program'])} · series {widgets.md(comp.get('series') or '–')} · stage **{comp['stage']}** · "
                    f"intended profile {widgets.md(program.get('intended_profile') or '–')}")
+        widgets.structure(comp.get("smiles"))
     with head[1]:
         widgets.badge(graded.get("grade"))
         st.page_link(page("stage-gate"), label="Review a stage transition", icon=":material/how_to_reg:")
@@ -128,6 +129,7 @@ def render() -> None:
 
     st.subheader("Findings")
     widgets.findings_list(graded.get("findings") or [])
+    actions.compound_actions(ctx, name, graded.get("findings") or [])
 
     result = data.grading(ctx.url, ctx.version, ctx.program)
     ev = evidence.of(result, name)

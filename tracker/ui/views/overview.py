@@ -9,7 +9,7 @@ import streamlit as st
 
 from tracker.domain import STAGES
 from tracker import fmt
-from tracker.ui import charts, data, theme, widgets
+from tracker.ui import actions, charts, data, theme, widgets
 from tracker.ui.main import context, open_compound
 
 PAGE_SIZE = 100
@@ -153,6 +153,8 @@ def render() -> None:
     for col, key in zip(cols, ("high", "moderate", "low", "clear")):
         g = theme.GRADES[key]
         col.metric(g.badge, int(counts.get(key, 0)))
+
+    actions.owner_summary(ctx)
 
     needs_attention(df)
 

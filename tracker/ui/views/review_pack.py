@@ -37,6 +37,10 @@ def render() -> None:
             ctx.engine, program=ctx.program, compounds=picked or None, author=author, graded=result.to_records(), result=result,
             with_charts=with_charts, progress=lambda done, total: bar.progress(done / total, text=f"Rendering chart {done} of {total}"))
         bar.empty()
+        from tracker.services.history import record_pack
+
+        record_pack(ctx.engine, text, author or None)  # the next pack says what changed since this one
+        data.clear_caches()
         label = ", ".join(picked[:3]) + (" …" if len(picked) > 3 else "") if picked else scope
         st.session_state["pack_html"] = (text, file_name(label if not picked else f"{scope}-selection"), label)
     if "pack_html" in st.session_state:
