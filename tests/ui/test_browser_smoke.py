@@ -28,7 +28,7 @@ CHROMIUM_ARGS = ["--no-sandbox", "--disable-gpu", "--disable-background-networki
 PAGES = {  # url path -> page title
     "": "Risk overview", "overview": "Risk overview", "compound": "Compound evidence", "kinetic-map": "Kinetic map", "measure-next": "Measure next",
     "stage-gate": "Stage gate", "what-if": "What-if", "review-pack": "Review pack", "load-data": "Load data",
-    "audit-trail": "Audit trail", "fit-time-course": "Fit a time course",
+    "audit-trail": "Audit trail", "fit-time-course": "Fit a time course", "what-changed": "What changed",
 }
 
 
@@ -272,5 +272,28 @@ def test_a_double_click_on_the_gate_confirmation_records_one_decision_and_moves_
     engine.dispose()
     assert after == before + 1, "a double click must record one decision"
     assert stage == to, "and move the compound one stage only"
+    page.close()
+
+
+def test_a_lead_opens_an_action_on_a_drawn_compound_and_sees_it_by_owner(server, browser, tmp_path, demo_graded):
+    """The compound page draws the structure (an inline SVG from RDKit) and opens an action from a finding."""
+    name = next(n for n, g in demo_graded.items() if g["findings"])
+    page = browser.new_page(viewport={"width": 1440, "height": 1100})
+    page.goto(f"{server}/compound?compound={name}")
+    _settle(page)
+    drawing = page.locator(".krt-structure svg").first
+    drawing.wait_for(timeout=30_000)
+    box = drawing.bounding_box()
+    assert box and box["width"] > 100 and box["height"] > 60
+    assert drawing.locator("path").count() > 5  # bonds drawn as paths
+    page.get_by_label("Note").fill("book the SPR slot")
+    page.get_by_role("button", name="Open action").click()
+    page.get_by_text("Action opened on").first.wait_for(timeout=30_000)
+    _settle(page)
+    assert "book the SPR slot" in page.inner_text("body")
+    page.screenshot(path=str(tmp_path / "action.png"), full_page=True)
+    page.goto(f"{server}/overview")
+    _settle(page)
+    page.get_by_text("Actions by owner").first.wait_for(timeout=30_000)
     assert page.locator("[data-testid='stException']").count() == 0
     page.close()
