@@ -92,7 +92,8 @@ def test_a_review_pack_draws_structures_and_says_what_changed_since_the_last_pac
 
     names = list(demo_graded)[:2]
     first = build_pack(demo_engine, compounds=names, with_charts=False)
-    assert first.count('<div class="structure"><svg') == 2 and "this is the first" in first
+    assert first.count('<img class="structure" alt="structure drawing" src="data:image/svg+xml;base64,') == 2
+    assert "this is the first" in first
     record_pack(demo_engine, first, "demo-lead")
     name, finding = _compound_with_finding(demo_graded)
     add_action(demo_engine, name, finding["rule"], "demo-scientist", "2026-01-01", by="demo-lead")

@@ -137,7 +137,7 @@ th{background:#F4F2EE}
 .prompt{font-weight:bold} .fcaution{color:#7A4B0E;font-size:13px}
 .chart{max-width:100%;display:block;margin:8px 0}
 .compound{page-break-inside:avoid}
-.structure svg{width:260px;height:180px;display:block;margin:4px 0}
+.structure{width:260px;height:180px;display:block;margin:4px 0}
 """
 
 
@@ -214,11 +214,11 @@ def _since_last_pack(engine: Engine) -> str:
 
 
 def _structure_html(smiles: object) -> str:
-    """The RDKit drawing (tracker.io.structures) inline; it holds no user text, so it is embedded as it is."""
-    from ..io.structures import draw_svg
+    """The RDKit drawing (tracker.io.structures) as an embedded SVG image (a data URI, like the charts)."""
+    from .widgets import structure_thumbnail
 
-    svg = draw_svg(smiles if isinstance(smiles, str) else None)
-    return f'<div class="structure">{svg}</div>' if svg else ""
+    uri = structure_thumbnail(smiles, 260, 180)
+    return f'<img class="structure" alt="structure drawing" src="{uri}">' if uri else ""
 
 
 def _compound_section(engine: Engine, name: str, graded: dict[str, Any], with_charts: bool, result) -> str:

@@ -101,13 +101,13 @@ def structure_html(smiles: object, width: int = 260, height: int = 180) -> str |
     return f'<div class="krt-structure" role="img" aria-label="structure drawing">{svg}</div>'
 
 
-def structure_thumbnail(smiles: object) -> str | None:
-    """A small drawing as a ``data:image/svg+xml`` URL for table image columns; None without SMILES."""
+def structure_thumbnail(smiles: object, width: int = 120, height: int = 80) -> str | None:
+    """A drawing as a ``data:image/svg+xml`` URL (table image columns, the review pack); None without SMILES."""
     import base64
 
     from ..io.structures import draw_svg
 
-    svg = draw_svg(smiles if isinstance(smiles, str) else None, 120, 80)
+    svg = draw_svg(smiles if isinstance(smiles, str) else None, width, height)
     return None if svg is None else "data:image/svg+xml;base64," + base64.b64encode(svg.encode("utf-8")).decode("ascii")
 
 
