@@ -12,6 +12,7 @@ from tracker.services.grading import grade_portfolio, set_rule_override
 from tracker.services.history import PACK_META, changes
 from tracker.services.importing import import_path
 
+PASSWORD = "test-password-42"  # tests/conftest.py TEST_PASSWORD: every kestrel user's
 KEYS = {"since", "grades", "findings_new", "findings_resolved", "measurements", "decisions", "actions_opened", "actions_closed"}
 
 
@@ -21,7 +22,7 @@ def test_changes_list_every_kind_of_change_since_a_moment(kestrel, tmp_path):
     lo_rule = next(r for r in grade_portfolio(kestrel) if r["compound"] == "K-LO-1")["findings"][0]["rule"]
     add_action(kestrel, "K-LO-1", lo_rule, "sam", "2026-03-01", by="lena")
     set_rule_override(kestrel, "Kestrel", {"no_shift_ratio": "12", "ki_shift_threshold": "20"}, by="lena", reason="noisy assay")
-    request_gate(kestrel, "K-HIT-1", "hit-to-lead", by="lena", reason="clean hit")
+    request_gate(kestrel, "K-HIT-1", "hit-to-lead", by="lena", reason="clean hit", password=PASSWORD)
     (tmp_path / "potency.csv").write_text("compound,assay,readout,value,incubation,format\nK-HIT-1,KS bind,KD,250 nM,2 h,binding\n",
                                           encoding="utf-8")
     import_path(kestrel, tmp_path / "potency.csv", actor="sam")
@@ -41,12 +42,12 @@ def test_cli_changes_since_a_date_and_since_a_pack(cli, kestrel, tmp_path):
     code, out, err = cli("changes", "--since", "2000-01-01", "--json")
     assert code == 0 and err == ""
     ch = json.loads(out)
-    assert set(ch) == KEYS and {g["direction"] for g in ch["grades"]} == {"new"} and len(ch["grades"]) == 6
+    assert set(ch) == KEYS and {g["direction"] for g in ch["grades"]} == {"new"} and len(ch["grades"]) == len(grade_portfolio(kestrel))
     stamp = {"created_at": dt.datetime.now(dt.timezone.utc).isoformat(), "audit_head_id": 1, "audit_head_hash": "x"}
     pack = tmp_path / "review-pack.html"
     pack.write_text(f"<html><head><meta name='{PACK_META}' content='{html.escape(json.dumps(stamp), quote=True)}'></head></html>",
                     encoding="utf-8")
-    request_gate(kestrel, "K-HIT-1", "hit-to-lead", by="lena", reason="clean hit")
+    request_gate(kestrel, "K-HIT-1", "hit-to-lead", by="lena", reason="clean hit", password=PASSWORD)
     code, out, _ = cli("changes", "--since", str(pack))
     assert code == 0 and out.startswith("since review pack review-pack.html") and "gate K-HIT-1: hit -> hit-to-lead approved by lena" in out
     code, out, err = cli("changes", "--since", "last tuesday")

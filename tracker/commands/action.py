@@ -5,7 +5,7 @@
     ``prompt, overdue, created_by, created_at, closed_by, closed_at``)
 ``krt action done ID [--note TEXT]`` and ``krt action drop ID --note TEXT``
 
-Who acts is ``--by USER`` (default ``$KRT_USER``); leads and scientists may
+Who acts is the user signed in with ``krt login`` (``--by`` must match); leads and scientists may
 open and close actions.  Every change is audited.  Open actions whose finding
 disappears are closed automatically after the next write that grades.
 """
@@ -14,7 +14,8 @@ from __future__ import annotations
 
 import argparse
 
-from .grade import database, default_user, print_json
+from .grade import database, print_json
+from .signin import signed_in_user
 
 
 def register(sub: argparse._SubParsersAction) -> None:
@@ -27,7 +28,7 @@ def register(sub: argparse._SubParsersAction) -> None:
     add.add_argument("--owner", required=True, metavar="USER")
     add.add_argument("--due", required=True, metavar="YYYY-MM-DD")
     add.add_argument("--note", metavar="TEXT")
-    add.add_argument("--by", metavar="USER", default=None, help="who opens it (default $KRT_USER)")
+    add.add_argument("--by", metavar="USER", default=None, help="must match the signed-in user (krt login)")
     add.add_argument("--json", action="store_true")
     add.set_defaults(func=_add)
 
@@ -40,7 +41,7 @@ def register(sub: argparse._SubParsersAction) -> None:
         c = asub.add_parser(name, help=helptext)
         c.add_argument("id", metavar="ID", type=int)
         c.add_argument("--note", metavar="TEXT", required=note_required)
-        c.add_argument("--by", metavar="USER", default=None, help="who closes it (default $KRT_USER)")
+        c.add_argument("--by", metavar="USER", default=None, help="must match the signed-in user (krt login)")
         c.add_argument("--json", action="store_true")
         c.set_defaults(func=_close, status="done" if name == "done" else "dropped")
     p.set_defaults(func=lambda args: (p.print_help(), 2)[1])
@@ -56,7 +57,7 @@ def _add(args) -> int:
     from ..services.actions import add_action
 
     with database() as engine:
-        a = add_action(engine, args.compound, args.rule, args.owner, args.due, args.note, by=args.by or default_user())
+        a = add_action(engine, args.compound, args.rule, args.owner, args.due, args.note, by=signed_in_user(engine, args.by))
     if args.json:
         print_json(a)
     else:
@@ -84,7 +85,7 @@ def _close(args) -> int:
     from ..services.actions import close_action
 
     with database() as engine:
-        a = close_action(engine, args.id, args.status, args.note, by=args.by or default_user())
+        a = close_action(engine, args.id, args.status, args.note, by=signed_in_user(engine, args.by))
     if args.json:
         print_json(a)
     else:
