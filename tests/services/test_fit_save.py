@@ -158,7 +158,7 @@ def test_an_export_leaves_out_superseded_values_so_a_re_import_cannot_revive_the
     from tracker.db import queries
 
     code, _out, err = cli("fit", "dissociation", dissociation_file(tmp_path, header_unit="s"), "--save", "K-CAN-1",
-                          "--by", "sam", "--supersede", "clock fixed")
+                          "--by", "sam", "--supersede", "clock fixed", as_user="sam")
     assert code == 0, err
     code, _out, err = cli("export", str(tmp_path / "out"))
     assert code == 0, err
