@@ -67,7 +67,8 @@ def test_three_processes_importing_disjoint_compounds_at_once_lose_nothing_and_k
     w_ = workers.mod
     _prepare(migrated_engine, tmp_path, w_)
     with migrated_engine.connect() as conn:
-        events_before = conn.execute(select(func.count()).select_from(AuditEvent)).scalar_one()
+        # grade snapshots are written after each import only when grades change, so the count leaves them out
+        events_before = conn.execute(select(func.count()).select_from(AuditEvent).where(AuditEvent.action != "snapshot")).scalar_one()
     plan = {}
     for w in range(N_IMPORTERS):
         folders = []
@@ -94,7 +95,7 @@ def test_three_processes_importing_disjoint_compounds_at_once_lose_nothing_and_k
             .join(Potency, Potency.compound_id == Compound.id).join(KineticMeasurement, KineticMeasurement.compound_id == Compound.id)
             .group_by(Compound.name)).all()
         history = conn.execute(select(func.count()).select_from(StageHistory)).scalar_one()
-        events_after = conn.execute(select(func.count()).select_from(AuditEvent)).scalar_one()
+        events_after = conn.execute(select(func.count()).select_from(AuditEvent).where(AuditEvent.action != "snapshot")).scalar_one()
         shared = conn.execute(select(func.count()).select_from(Program).where(Program.name == "Shared-New")).scalar_one()
         created = conn.execute(select(func.count()).select_from(AuditEvent).where(
             AuditEvent.entity_type == "program", AuditEvent.action == "create")).scalar_one()

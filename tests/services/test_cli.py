@@ -120,7 +120,9 @@ def test_audit_verify_passes_on_an_intact_log_and_show_filters_by_compound(cli, 
     gates = [e for e in json.loads(out) if e["action"] in ("gate-approved", "stage-change")]
     assert len(gates) == 4 and sum(e["id"] in {x["id"] for x in events} for e in gates) == 2  # K-ADV-2's are left out
     code, out, _ = cli("audit", "show", "--limit", "2")
-    assert code == 0 and len(out.strip().splitlines()) == 2 and "stage-change" in out
+    assert code == 0 and len(out.strip().splitlines()) == 2  # the newest two (the gate's snapshot and signature)
+    code, out, _ = cli("audit", "show", "--limit", "6")
+    assert code == 0 and len(out.strip().splitlines()) == 6 and "stage-change" in out
 
 
 AUDIT_EDITS = {
