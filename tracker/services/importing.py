@@ -29,7 +29,6 @@ SQLite, COPY on PostgreSQL).
 from __future__ import annotations
 
 import datetime as dt
-import hashlib
 import math
 import sys
 from collections.abc import Iterable
@@ -376,15 +375,15 @@ def _scan_deferred(deferred: list[tuple[Path, str]], known: set[str]) -> list[In
 def _write_deferred(session: Session, deferred: list[tuple[Path, str]], actor: str, prog: Progress, summary: dict[str, Any]) -> None:
     """Validate and insert the large files chunk by chunk inside the import's transaction.
 
-    Memory stays bounded by the chunk size: only ids, compound ids and content
-    hashes (as 32 bytes) of the inserted rows are kept, about 50 bytes a row,
-    for the audit event.  Any problem raises :class:`ImportErrors` after the whole file was
+    Memory stays bounded by the chunk size: only the ids of the inserted rows
+    are kept (8 bytes a row); the audit event's value seal reads the rows back
+    in blocks, as for a whole-file import.  Any problem raises :class:`ImportErrors` after the whole file was
     checked, and the transaction then writes nothing.
     """
     compound_ids = dict(session.execute(select(Compound.name, Compound.id)).all())
     now = dt.datetime.now(dt.timezone.utc)
     files_all = summary["files"] + [str(f) for f, _ in deferred]
-    reason = f"import of {', '.join(files_all)}"
+    reason = f"import of {', '.join(Path(f).name for f in files_all)}"  # the files' own names, not where they sat
     summary["files"] = files_all
     errors: list[InputError] = []
     more = 0
@@ -392,7 +391,7 @@ def _write_deferred(session: Session, deferred: list[tuple[Path, str]], actor: s
     events: list[dict[str, Any]] = []
     state: dict[str, dict[str, Any]] = {}
     for name, labels, df, chunk_errors, chunk_warnings in _deferred_chunks(deferred, compound_ids.keys()):
-        st = state.setdefault(name, {"files": labels, "rows": 0, "ids": [], "cids": [], "hashes": [],
+        st = state.setdefault(name, {"files": labels, "rows": 0, "ids": [],
                                      "stored": session.execute(select(MODELS[name].id).limit(1)).first() is not None})
         warnings += [w.one_line() for w in chunk_warnings[:100]]
         if chunk_errors or errors:
@@ -421,8 +420,6 @@ def _write_deferred(session: Session, deferred: list[tuple[Path, str]], actor: s
         values = _columns(new, cols)
         new_ids = _insert(session, model.__table__, values, {"created_at": now}, name, prog, ("compound_id", "content_hash"))
         st["ids"].append(np.asarray(new_ids, dtype=np.int64))
-        st["cids"].append(np.asarray(values["compound_id"], dtype=np.int64))
-        st["hashes"].append(np.frombuffer(bytes.fromhex("".join(values["content_hash"])), dtype=np.uint8).reshape(-1, 32))
         prog.say(f"{name}: {st['rows']:,} rows checked and written", transient=True)
     if errors:
         raise ImportErrors(_capped(errors, more))
@@ -431,44 +428,14 @@ def _write_deferred(session: Session, deferred: list[tuple[Path, str]], actor: s
         n_rows = len(ids)
         summary["tables"][name] = {"files": st["files"], "rows": st["rows"], "inserted": n_rows, "updated": 0,
                                    "unchanged": st["rows"] - n_rows}
-        if n_rows:
-            cids = np.concatenate(st["cids"])
-            hashes = np.concatenate(st["hashes"])
+        if n_rows:  # the same value seal as a whole-file import (read back in blocks: memory stays bounded)
             events.append(_event(actor, "import", MODELS[name].__tablename__, None, None,
                                  {"files": st["files"], "rows": st["rows"], "inserted": n_rows,
                                   "duplicates_skipped": st["rows"] - n_rows,
-                                  "id_ranges": _id_runs(ids), "rows_sha256": _rows_digest_arrays(ids, cids, hashes)}, reason))
+                                  **seal_rows(session, MODELS[name].__tablename__, (int(i) for i in ids))}, reason))
     append_events(session, events)
     summary["audit_events"] = summary.get("audit_events", 0) + len(events)
     summary["_stream_warnings"] = warnings
-
-
-def _id_runs(ids: np.ndarray) -> list[list[int]]:
-    """:func:`tracker.db.audit.id_ranges` of an id array, computed with numpy."""
-    s = np.unique(ids)
-    if not len(s):
-        return []
-    breaks = np.flatnonzero(np.diff(s) != 1)
-    starts = np.concatenate([s[:1], s[breaks + 1]])
-    ends = np.concatenate([s[breaks], s[-1:]])
-    return [[int(a), int(b)] for a, b in zip(starts.tolist(), ends.tolist())]
-
-
-def _rows_digest_arrays(ids: np.ndarray, cids: np.ndarray, hashes: np.ndarray) -> str:
-    """:func:`tracker.db.audit.rows_digest` of the lines ``id<TAB>compound_id<TAB>content_hash``, without building them all.
-
-    The lines start with distinct ids, so sorting the lines is sorting the ids as text.
-    """
-    order = np.argsort(ids.astype("S20"), kind="stable")  # ASCII digits: byte order is text order
-    digest = hashlib.sha256()
-    first = True
-    for i in range(0, len(order), 50_000):
-        part = order[i:i + 50_000]
-        hexes = hashes[part].tobytes().hex()
-        text = "\n".join(f"{a}\t{b}\t{hexes[64 * k:64 * k + 64]}" for k, (a, b) in enumerate(zip(ids[part].tolist(), cids[part].tolist())))
-        digest.update((text if first else "\n" + text).encode("utf-8"))
-        first = False
-    return digest.hexdigest()
 
 
 @dataclass
