@@ -62,9 +62,26 @@ def write_potency(path: Path, rows: int) -> None:
             fh.write(line)
 
 
-def run_import(url: str, path: Path) -> tuple[int, float, float]:
-    env = dict(os.environ, KRT_DATABASE_URL=url, PYTHONPATH=os.pathsep.join([str(ROOT), os.environ.get("PYTHONPATH", "")]))
+BENCH_PASSWORD = "bench-import-memory"  # an invented user of a throw-away database
+
+
+def _env(url: str, config: Path) -> dict[str, str]:
+    env = dict(os.environ, KRT_DATABASE_URL=url, KRT_CONFIG_DIR=str(config),
+               PYTHONPATH=os.pathsep.join([str(ROOT), os.environ.get("PYTHONPATH", "")]))
     env.pop("KRT_USER", None)
+    return env
+
+
+def sign_in(url: str, config: Path) -> None:
+    """Sign the importing user in, as a person would (``krt login --password-stdin``)."""
+    out = subprocess.run([sys.executable, "-m", "tracker", "login", "bench", "--password-stdin"], input=BENCH_PASSWORD + "\n",
+                         env=_env(url, config), capture_output=True, text=True, cwd=ROOT)
+    if out.returncode != 0:
+        raise SystemExit(f"krt login failed: {out.stderr.strip()[-2000:]}")
+
+
+def run_import(url: str, path: Path) -> tuple[int, float, float]:
+    env = _env(url, path.parent / "config")
     out = subprocess.run([sys.executable, "-c", CHILD, str(path)], env=env, capture_output=True, text=True, cwd=ROOT)
     lines = [ln for ln in out.stdout.splitlines() if ln.startswith("RESULT")]
     if out.returncode != 0 or not lines:
@@ -86,9 +103,13 @@ def main(argv: list[str] | None = None) -> int:
         from tracker.db import migrate
         from tracker.db.session import make_engine
 
+        from tracker.services.users import add_user
+
         engine = make_engine(url)
         migrate.upgrade(engine)
+        add_user(engine, "bench", "lead", password=BENCH_PASSWORD)  # the first user: the bootstrap lead
         engine.dispose()
+        sign_in(url, folder / "config")
         base = write_base(folder)
         _, base_mb, base_s = run_import(url, base)
         potency = folder / "potency.csv"
