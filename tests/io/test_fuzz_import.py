@@ -114,7 +114,13 @@ def _files(tables: dict[str, tuple[list[str], list[list[str]]]]) -> tuple[dict[s
 
 
 def _copy() -> dict[str, tuple[list[str], list[list[str]]]]:
-    return {t: (list(h), [list(r) for r in rows]) for t, (h, rows) in BASE.items()}
+    """The valid portfolio with every column of the format (optional columns added later stay empty), so a
+    broken cell can land in any column, including ones the format gained after this file was written."""
+    out = {}
+    for t, (h, rows) in BASE.items():
+        extra = [c.name for c in SPECS[t].columns if c.name not in h]
+        out[t] = (list(h) + extra, [list(r) + [""] * len(extra) for r in rows])
+    return out
 
 
 # ------------------------------------------------------------------ bad values
