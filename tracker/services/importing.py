@@ -159,7 +159,12 @@ def import_path(
     summary["warnings"] = [w.one_line() for w in validated.warnings] + summary.pop("_stream_warnings", [])
     summary["path"] = str(path)
     prog.say("import committed")
-    if not isinstance(target, UnitOfWork):  # grade history and actions follow the new data (with a UnitOfWork the caller does it)
+    if deferred:
+        # A bulk load read in chunks to stay in bounded memory is not followed by a whole-portfolio re-grade in the
+        # same process (that would hold every reading at once); the grade history and the actions follow at the
+        # next grading write (gate, saved fit, rule change or import).
+        summary["follow_up"] = {"snapshots": 0, "closed": [], "deferred": True}
+    elif not isinstance(target, UnitOfWork):  # grade history and actions follow the new data (with a UnitOfWork the caller does it)
         from .history import refresh
 
         summary["follow_up"] = refresh(target, f"import of {', '.join(summary.get('files', [])) or path.name}", actor)
